@@ -1,0 +1,64 @@
+# Output regulator shared by the battery and supercap buck converters.
+# The loop integrates a commanded converter output voltage (u_mv) and turns it into a duty
+# with input-voltage feedforward (duty = u / bus), so a bus that jumps with a gust or a
+# sprint does not jump the charge current. Each tick u moves by the most restrictive of three
+# errors: voltage under its ceiling, current under its limit, bus above its floor.
+from controller.compat import const
+from controller.signals import DUTY_MAX
+
+_DUTY_TOP = const(9500)  # a buck cannot run at 100 %: keep the switch's off-time
+_KV_SHIFT = const(1)  # u step = voltage error / 2
+_KI_DIV = const(16)  # u step = current error / 16 (mA -> mV; ~0.15 ohm output path)
+_KB_DIV = const(32)  # u step = bus error / 32 (a loaded generator sags several mV per mV)
+_STEP_UP_MV = const(60)  # slowest to rise: soft start, and a tiring rider is not stalled
+_STEP_DN_MV = const(2000)  # quick to fall
+_UNDER_MV = const(300)  # u never winds further below the output than this
+
+
+class BuckLoop:
+    def __init__(self):
+        self.u_mv = 0  # commanded converter output voltage, mV; 0 when idle
+        self.duty = 0  # last duty, 0..DUTY_MAX
+
+    def stop(self):
+        self.u_mv = 0
+        self.duty = 0
+
+    def update(self, out_mv, ceil_mv, out_ma, lim_ma, bus_mv, floor_mv, u_cap_mv):
+        """One regulation step; returns the new duty. u_cap_mv caps u (for a current-limited
+        path without a current sensor); pass a large value for none."""
+        if self.u_mv == 0:
+            self.u_mv = out_mv  # start at the zero-current point
+        step = (ceil_mv - out_mv) >> _KV_SHIFT
+        s = (lim_ma - out_ma) // _KI_DIV
+        if s < step:
+            step = s
+        s = (bus_mv - floor_mv) // _KB_DIV
+        if s < step:
+            step = s
+        if step > _STEP_UP_MV:
+            step = _STEP_UP_MV
+        elif step < -_STEP_DN_MV:
+            step = -_STEP_DN_MV
+        if out_mv >= ceil_mv and step > 0:
+            step = 0  # at or above the ceiling the output never rises
+        u = self.u_mv + step
+        if u > u_cap_mv:
+            u = u_cap_mv
+        if u < out_mv - _UNDER_MV:
+            u = out_mv - _UNDER_MV
+        if u < 1:
+            u = 1
+        self.u_mv = u
+        if bus_mv <= 0:
+            self.duty = 0
+            return 0
+        d = (u * DUTY_MAX) // bus_mv
+        if d > _DUTY_TOP:
+            d = _DUTY_TOP
+        if d < 0:
+            d = 0
+        if out_mv >= ceil_mv and d > self.duty:
+            d = self.duty  # the feedforward must not raise it either (a falling bus)
+        self.duty = d
+        return d

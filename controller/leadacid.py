@@ -1,0 +1,140 @@
+# Lead-acid charger: bulk, absorption, float and (flooded only, on request) equalize, with
+# temperature-compensated setpoints and a charging temperature window.
+#
+# Missing or implausible temperature: we choose "no charging" (the first of the two
+# conservative options) and raise F_TEMP_SENSOR. A lead-acid battery left uncharged for a
+# while is harmed far less than one overcharged hot with no compensation.
+from controller.buckloop import BuckLoop
+from controller.compat import const
+from controller.signals import (
+    F_BATT_ABSENT, F_BATT_OVER, F_BATT_REVERSED, F_TEMP_SENSOR, F_TEMP_WINDOW,
+    ST_ABSORPTION, ST_BULK, ST_EQUALIZE, ST_FLOAT,
+)
+
+TEMP_MIN_PLAUSIBLE_DC = const(-400)  # an open NTC reads colder than this
+TEMP_MAX_PLAUSIBLE_DC = const(850)  # a shorted NTC reads hotter than this
+_REVERSED_MV = const(-200)  # a battery this far negative is connected backwards
+_BIG_MV = const(100000)
+
+
+def comp_mv(p, cell_mv, temp_dc):
+    """Block setpoint for a per-cell voltage at a battery temperature, compensated by the
+    profile's coefficient; the temperature is clamped to the charging window first.
+    Integer: cells x (cell_mv + tc_uv_dc x dT / 1000)."""
+    if temp_dc < p.temp_min_dc:
+        temp_dc = p.temp_min_dc
+    elif temp_dc > p.temp_max_dc:
+        temp_dc = p.temp_max_dc
+    return p.cells * cell_mv + (p.cells * p.tc_uv_dc_cell * (temp_dc - p.ref_temp_dc)) // 1000
+
+
+def stage_cell_mv(p, stage):
+    if stage == ST_ABSORPTION or stage == ST_BULK:
+        return p.abs_cell_mv
+    if stage == ST_EQUALIZE:
+        return p.eq_cell_mv
+    return p.float_cell_mv
+
+
+class LeadAcidCharger:
+    def __init__(self, p):
+        self.p = p
+        self.stage = ST_BULK  # charging stage (not ST_BLOCKED: blocking is reported apart)
+        self.blocked = 1  # 1 while charging is forbidden this tick
+        self.fault = 0  # this tick's battery fault bits
+        self.ceiling_mv = 0  # this tick's compensated ceiling, mV
+        self.abs_ms = 0  # time spent charging in absorption, ms
+        self.tail_ms = 0  # time at voltage with current at or below the tail, ms
+        self.rebulk_ms = 0  # time in float below the re-bulk threshold, ms
+        self.eq_ms = 0  # time spent charging in equalize, ms
+        self.eq_armed = 1  # 1 when an equalize request (rising edge) may start one
+        self.lost = 0  # 1 after the battery was absent or reversed: restart at bulk
+        self.loop = BuckLoop()
+
+    def _enter(self, stage):
+        self.stage = stage
+        self.abs_ms = 0
+        self.tail_ms = 0
+        self.rebulk_ms = 0
+        self.eq_ms = 0
+
+    def block(self):
+        """Charging forbidden by the supervisor (guard or sensor fault): duty 0, stage kept."""
+        self.blocked = 1
+        self.loop.stop()
+        return 0
+
+    def update(self, m, dt_ms, floor_mv):
+        """One tick. Returns the battery converter duty."""
+        p = self.p
+        self.fault = 0
+        t = m.batt_temp_dc
+        v = m.batt_mv
+        if t < TEMP_MIN_PLAUSIBLE_DC or t > TEMP_MAX_PLAUSIBLE_DC:
+            self.fault = F_TEMP_SENSOR
+        elif t < p.temp_min_dc or t > p.temp_max_dc:
+            self.fault = F_TEMP_WINDOW
+        if v < _REVERSED_MV:
+            self.fault |= F_BATT_REVERSED
+            self.lost = 1
+        elif v < p.absent_mv:
+            self.fault |= F_BATT_ABSENT
+            self.lost = 1
+        if self.fault:
+            return self.block()
+        if self.lost:
+            self.lost = 0
+            self._enter(ST_BULK)
+        self.blocked = 0
+        self._advance(m, dt_ms)
+        ceil = comp_mv(p, stage_cell_mv(p, self.stage), t)
+        self.ceiling_mv = ceil
+        if v > ceil + p.over_margin_mv:
+            self.fault = F_BATT_OVER
+            self.loop.stop()
+            return 0
+        return self.loop.update(v, ceil, m.batt_ma, p.chg_limit_ma, m.bus_mv, floor_mv, _BIG_MV)
+
+    def _advance(self, m, dt_ms):
+        p = self.p
+        st = self.stage
+        v = m.batt_mv
+        i = m.batt_ma
+        t = m.batt_temp_dc
+        charging = self.loop.duty > 0 and i > 0
+        band = p.over_margin_mv >> 1  # "at voltage": within 50 mV per 12 V block
+        if not m.eq_req:
+            self.eq_armed = 1
+        want_eq = m.eq_req and self.eq_armed and p.eq_cell_mv > 0
+        if st == ST_BULK:
+            if v >= comp_mv(p, p.abs_cell_mv, t) - band:
+                self._enter(ST_ABSORPTION)
+        elif st == ST_ABSORPTION:
+            if charging:
+                self.abs_ms += dt_ms
+            if v >= comp_mv(p, p.abs_cell_mv, t) - band and 0 <= i <= p.tail_ma:
+                self.tail_ms += dt_ms
+            else:
+                self.tail_ms = 0
+            if want_eq:
+                self._start_eq()
+            elif self.tail_ms >= p.tail_hold_ms or self.abs_ms >= p.abs_max_ms:
+                self._enter(ST_FLOAT)
+        elif st == ST_FLOAT:
+            if v < p.cells * p.rebulk_cell_mv:
+                self.rebulk_ms += dt_ms
+            else:
+                self.rebulk_ms = 0
+            if want_eq:
+                self._start_eq()
+            elif self.rebulk_ms >= p.rebulk_hold_ms:
+                self._enter(ST_BULK)
+        elif st == ST_EQUALIZE:
+            if charging:
+                self.eq_ms += dt_ms
+            if not m.eq_req or self.eq_ms >= p.eq_ms:
+                self._enter(ST_FLOAT)
+
+    def _start_eq(self):
+        self._enter(ST_EQUALIZE)
+        self.eq_armed = 0  # one request, one equalize: release and press again for another

@@ -1,0 +1,56 @@
+# Maximum power point tracking for wind and hydro drives: hill climbing (perturb and observe)
+# on the bus setpoint. The converters already back off below their bus floor, so moving the
+# floor moves the operating point along the machine's curve: a higher bus means a faster,
+# less loaded rotor. Every interval the mean input power is compared with the last interval's;
+# if it rose, keep stepping the same way, else turn round.
+# Above overspeed_mv the dump load ramps in (storage full or a gust the storage cannot take);
+# the overvoltage guard stays the hard backstop.
+from controller.compat import const
+from controller.signals import DUTY_MAX
+
+_DUMP_RAMP_MV = const(1000)  # dump duty goes 0 -> full over this much bus above overspeed
+
+
+class HillClimb:
+    def __init__(self, p):
+        self.p = p
+        self.set_mv = p.floor_mv + 2 * p.mppt_step_mv  # bus setpoint, mV
+        self.dir = 1  # +1 raise the setpoint, -1 lower it
+        self.acc_mw = 0  # input power summed over this interval, mW x ticks
+        self.n = 0  # ticks summed
+        self.last_mw = 0  # mean input power of the previous interval, mW
+        self.elapsed_ms = 0  # time in this interval, ms
+        hi = p.overspeed_mv if p.overspeed_mv else p.ovp_recover_mv
+        self.top_mv = hi - p.mppt_step_mv  # the setpoint stays below overspeed
+
+    def update(self, bus_mv, in_ma, dt_ms):
+        """Returns the bus setpoint (mV) for the converters' floor."""
+        p = self.p
+        self.acc_mw += (bus_mv * in_ma) // 1000
+        self.n += 1
+        self.elapsed_ms += dt_ms
+        if self.elapsed_ms >= p.mppt_interval_ms:
+            mean = self.acc_mw // self.n
+            if mean < self.last_mw:
+                self.dir = -self.dir
+            self.last_mw = mean
+            self.acc_mw = 0
+            self.n = 0
+            self.elapsed_ms = 0
+            s = self.set_mv + self.dir * p.mppt_step_mv
+            if s > self.top_mv:
+                s = self.top_mv
+                self.dir = -1
+            elif s < p.floor_mv:
+                s = p.floor_mv
+                self.dir = 1
+            self.set_mv = s
+        return self.set_mv
+
+    def dump_duty(self, bus_mv):
+        """Overspeed dump duty for this bus voltage (0 when overspeed is not set)."""
+        o = self.p.overspeed_mv
+        if o == 0 or bus_mv <= o:
+            return 0
+        d = ((bus_mv - o) * DUTY_MAX) // _DUMP_RAMP_MV
+        return DUTY_MAX if d > DUTY_MAX else d

@@ -1,0 +1,56 @@
+# Overvoltage guard. At or above the trip: dump load on, USB off, storage converters off, all
+# in the same tick. The latch holds until the bus has stayed below the recovery level for the
+# hold time. A trip that comes back again and again means the dump load cannot hold the
+# source (a jammed furl, a wrong gear, a dump resistor gone open): after lockout_trips trips
+# within trip_window the outputs stay off until reset_req (or a power cycle); the dump load
+# keeps answering every trip meanwhile.
+from controller.compat import ticks_diff
+
+
+class OverVoltGuard:
+    def __init__(self, p):
+        self.p = p
+        self.tripped = 0  # 1 while latched after a trip
+        self.locked = 0  # 1 after too many trips in the window, until reset
+        self.below_ms = 0  # time the bus has stayed below the recovery level while latched, ms
+        self.trip_at = [0] * p.lockout_trips  # ring of recent trip times (now_ms)
+        self.n_trips = 0  # valid entries in trip_at (up to lockout_trips)
+        self.next = 0  # ring index for the next trip
+        self.trips_total = 0  # trips since start (telemetry)
+
+    def update(self, bus_mv, dt_ms, now_ms, reset_req):
+        p = self.p
+        if bus_mv >= p.ovp_trip_mv:
+            self.below_ms = 0
+            if not self.tripped:
+                self.tripped = 1
+                self.trips_total += 1
+                self._record(now_ms)
+        elif self.tripped:
+            if bus_mv < p.ovp_recover_mv:
+                self.below_ms += dt_ms
+                if self.below_ms >= p.ovp_hold_ms:
+                    self.tripped = 0
+                    self.below_ms = 0
+            else:
+                self.below_ms = 0
+        if reset_req and self.locked and not self.tripped:
+            self.locked = 0
+            self.n_trips = 0
+
+    def _record(self, now_ms):
+        p = self.p
+        self.trip_at[self.next] = now_ms
+        self.next += 1
+        if self.next >= p.lockout_trips:
+            self.next = 0
+        if self.n_trips < p.lockout_trips:
+            self.n_trips += 1
+        if self.n_trips < p.lockout_trips:
+            return
+        recent = 0
+        for i in range(p.lockout_trips):
+            if ticks_diff(now_ms, self.trip_at[i]) < p.trip_window_ms:
+                recent += 1
+        if recent >= p.lockout_trips:
+            self.locked = 1

@@ -1,0 +1,125 @@
+# Installation profile: JSON in volts, amps, seconds and degrees C; validated once at load and
+# converted to the integer units the tick uses (mV, mA, ms, deci-degrees C).
+# The rules live in profile_fields.py; this module holds the resolved settings.
+import json
+
+from controller.compat import ConfigError
+from controller import profile_fields as _f
+from controller.profile_battery import battery
+from controller import profile_system as _s
+
+CHEMISTRIES = _f.CHEMISTRIES
+SCHEMES = _f.SCHEMES
+
+
+class Profile:
+    """Validated installation settings in integer units. Built only by from_dict()."""
+
+    def __init__(self):
+        self.name = ""
+        # battery
+        self.chemistry = "agm"
+        self.cells = 6  # cells in series
+        self.capacity_mah = 0  # rated capacity C, mAh
+        self.abs_cell_mv = 0  # absorption at ref temperature, mV per cell
+        self.float_cell_mv = 0  # float at ref temperature, mV per cell
+        self.eq_cell_mv = 0  # equalize at ref temperature, mV per cell; 0: not allowed
+        self.eq_ms = 0  # equalize time limit, ms
+        self.tc_uv_dc_cell = 0  # temperature coefficient, uV per deci-degree C per cell
+        self.ref_temp_dc = 250  # reference temperature of the setpoints, deci-degrees C
+        self.chg_limit_ma = 0  # battery charge-current limit, mA
+        self.tail_ma = 0  # absorption ends when current stays at or below this, mA
+        self.tail_hold_ms = 0  # ... for this long, ms
+        self.abs_max_ms = 0  # absorption time limit (charging time only), ms
+        self.temp_min_dc = 0  # charging temperature window, deci-degrees C
+        self.temp_max_dc = 0
+        self.rebulk_cell_mv = 0  # float returns to bulk below this, mV per cell ...
+        self.rebulk_hold_ms = 0  # ... held this long, ms
+        self.absent_mv = 0  # below this the battery counts as absent or open, mV (block)
+        self.over_margin_mv = 0  # ceiling margin: 100 mV per 12 V block, scaled per cell
+        # supercap bank
+        self.cap_cells = 0
+        self.cap_cell_rating_mv = 0  # maker's rated cell voltage, mV
+        self.cap_clamp_mv = 0  # bank clamp, mV (at or below cells x rating)
+        self.cap_hyst_mv = 0  # recharge starts below clamp - hysteresis, mV
+        self.cap_limit_ma = 0  # bank charge-current limit, mA
+        self.cap_headroom_mv = 0  # limit x path resistance: duty ceiling above bank voltage, mV
+        self.cap_taps = False  # board senses each cell and drives bleeders
+        self.cap_bal_mv = 0  # bleed a cell this far above the cell mean, mV
+        # USB port
+        self.scheme = 0  # index into SCHEMES
+        self.vbus_min_mv = 0
+        self.vbus_max_mv = 0
+        self.line_tol_pct = 0  # data-line window, +/- percent of the nominal level
+        self.short_tol_mv = 0  # largest D+/D- difference that still counts as shorted, mV
+        self.usb_debounce_ms = 0  # readings stable this long before the port closes, ms
+        self.usb_bus_min_mv = 0  # 5 V converter starts at this bus, mV ...
+        self.usb_bus_hyst_mv = 0  # ... and stops at usb_bus_min_mv - this, mV
+        # bus
+        self.ovp_trip_mv = 0
+        self.ovp_recover_mv = 0
+        self.ovp_hold_ms = 0  # bus below recovery this long before the latch clears, ms
+        self.trip_window_ms = 0  # trips counted over this window, ms ...
+        self.lockout_trips = 0  # ... this many lock the outputs off until reset
+        self.floor_mv = 0  # converters back off below this bus voltage, mV
+        # sensor ranges: a reading outside [-neg, full scale] is implausible
+        self.bus_fs_mv = 0
+        self.batt_fs_mv = 0
+        self.batt_fs_ma = 0
+        self.cap_fs_mv = 0
+        self.vbus_fs_mv = 0
+        self.line_fs_mv = 0
+        # control
+        self.period_ms = 0  # tick period, ms
+        self.mppt = False  # hold the machine near its maximum power point (wind, hydro)
+        self.mppt_step_mv = 0  # bus setpoint perturbation, mV
+        self.mppt_interval_ms = 0  # time between perturbations, ms
+        self.overspeed_mv = 0  # MPPT: dump load ramps in above this bus, mV
+
+    def to_dict(self):
+        """The resolved integer settings (for reports and the host tools)."""
+        d = {}
+        for k in dir(self):
+            if not k.startswith("_"):
+                v = getattr(self, k)
+                if isinstance(v, (int, str, bool)):
+                    d[k] = v
+        return d
+
+
+def from_dict(doc):
+    """Validate a parsed profile document and return a Profile. Raises ConfigError."""
+    if not isinstance(doc, dict):
+        raise ConfigError("profile: expected a JSON object at the top level")
+    for key in doc:
+        if key not in _f.SECTIONS and key not in ("name", "notes"):
+            raise ConfigError("%s: unknown section; allowed: name, notes, %s"
+                              % (key, ", ".join(_f.SECTIONS)))
+    p = Profile()
+    name = doc.get("name", "")
+    if not isinstance(name, str):
+        raise ConfigError("name = %r: expected a string" % (name,))
+    p.name = name
+    battery(p, _f.section(doc, "battery"))
+    _s.supercap(p, _f.section(doc, "supercap"))
+    _s.usb(p, _f.section(doc, "usb"))
+    _s.bus(p, _f.section(doc, "bus"))
+    _s.sensors(p, _f.section(doc, "sensors"))
+    _s.control(p, _f.section(doc, "control"))
+    _s.cross_checks(p)
+    return p
+
+
+def load(path):
+    """Read and validate a profile file. Raises ConfigError (also for unreadable JSON)."""
+    try:
+        with open(path) as f:
+            doc = json.load(f)
+    except OSError as e:
+        raise ConfigError("%s: cannot read profile (%s)" % (path, e))
+    except ValueError as e:
+        raise ConfigError("%s: not valid JSON (%s)" % (path, e))
+    try:
+        return from_dict(doc)
+    except ConfigError as e:
+        raise ConfigError("%s: %s" % (path, e))

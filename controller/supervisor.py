@@ -1,0 +1,127 @@
+# Supervisor: one tick = guards first, then the USB port, then the battery, then the supercap.
+#
+# Order and priority (documented in DEVELOPERS.md):
+#  1. Plausibility. Each reading is checked against its physical range. An implausible bus
+#     reading puts every output in the safe state (storage off, USB off) and, if it reads
+#     above full scale, treats it as a trip (dump on). An implausible battery, supercap or USB
+#     reading turns off the outputs that reading protects; the battery temperature is judged
+#     by the charger (no charging without a plausible temperature).
+#  2. Overvoltage guard: tripped or locked out -> safe state, dump on while tripped.
+#  3. USB: the converter starts at the lowest bus of all (usb.bus_min_v), so phones are served
+#     first when the source is weak.
+#  4. Battery: its converter backs off when the bus falls below the floor.
+#  5. Supercap: backs off at a floor _CAP_FLOOR_MV higher, so it yields first as the drive
+#     slows and takes what the battery leaves.
+#  With MPPT the floor is the hill-climbing setpoint instead of the profile's fixed floor.
+from controller.compat import const, ticks_diff
+from controller.leadacid import LeadAcidCharger
+from controller.mppt import HillClimb
+from controller.overvolt import OverVoltGuard
+from controller.signals import (
+    DUTY_MAX, F_BATT_SENSOR, F_BUS_SENSOR, F_CAP_SENSOR, F_OVP, F_OVP_LOCKOUT, F_USB_SENSOR,
+    ST_BLOCKED, Commands, Measurements,
+)
+from controller.supercap import CapClamp
+from controller.usbport import UsbPort
+
+_NEG_MV = const(-500)  # a voltage reading may sit this far below zero (offset, noise)
+_CAP_FLOOR_MV = const(500)  # the supercap backs off this far above the battery's floor
+_DT_MAX_PERIODS = const(4)  # a late tick counts as at most this many periods
+
+
+class Supervisor:
+    def __init__(self, p):
+        self.p = p
+        self.m = Measurements()  # filled by the board, the simulator or the link, then tick()
+        self.c = Commands()  # read after tick()
+        self.charger = LeadAcidCharger(p)
+        self.clamp = CapClamp(p)
+        self.usb = UsbPort(p)
+        self.ovp = OverVoltGuard(p)
+        self.mppt = HillClimb(p) if p.mppt else None
+        self.last_ms = 0  # now_ms of the previous tick
+        self.ticks = 0  # ticks run
+        self.dt_max_ms = _DT_MAX_PERIODS * p.period_ms
+
+    def tick(self, now_ms):
+        """Run one control period on self.m; results in self.c. Integer-only, allocates
+        nothing, raises nothing."""
+        p = self.p
+        m = self.m
+        c = self.c
+        dt = ticks_diff(now_ms, self.last_ms) if self.ticks else 0
+        if dt < 0:
+            dt = 0
+        elif dt > self.dt_max_ms:
+            dt = self.dt_max_ms
+        self.last_ms = now_ms
+        self.ticks += 1
+
+        fault = 0
+        bus = m.bus_mv
+        if bus < _NEG_MV or bus > p.bus_fs_mv or m.src_ma < -p.batt_fs_ma or m.src_ma > p.batt_fs_ma:
+            fault = F_BUS_SENSOR
+            if bus > p.bus_fs_mv:
+                bus = p.ovp_trip_mv  # an over-range bus is treated as a trip
+        self.ovp.update(bus, dt, now_ms, m.reset_req)
+        if self.ovp.tripped:
+            fault |= F_OVP
+        if self.ovp.locked:
+            fault |= F_OVP_LOCKOUT
+        c.dump_duty = DUTY_MAX if self.ovp.tripped else 0
+
+        if fault:
+            self.charger.block()
+            self.clamp.block()
+            self.usb.block()
+            c.set_safe()
+            c.stage = ST_BLOCKED
+            c.usb_match = 0
+            c.fault = fault
+            return
+
+        floor = p.floor_mv
+        if self.mppt is not None:
+            floor = self.mppt.update(bus, m.src_ma, dt)
+            c.dump_duty = self.mppt.dump_duty(bus)
+
+        # USB
+        if (m.usb_vbus_mv < _NEG_MV or m.usb_vbus_mv > p.vbus_fs_mv or m.usb_dp_mv < _NEG_MV
+                or m.usb_dp_mv > p.line_fs_mv or m.usb_dm_mv < _NEG_MV or m.usb_dm_mv > p.line_fs_mv):
+            fault |= F_USB_SENSOR
+            self.usb.block()
+        else:
+            self.usb.update(m, dt)
+            fault |= self.usb.fault
+        c.usb_conv = self.usb.conv
+        c.usb_on = self.usb.on
+        c.usb_probe = self.usb.probe
+        c.usb_match = self.usb.match
+
+        # battery
+        if (m.batt_mv < -p.batt_fs_mv or m.batt_mv > p.batt_fs_mv or m.batt_ma < -p.batt_fs_ma
+                or m.batt_ma > p.batt_fs_ma):
+            fault |= F_BATT_SENSOR
+            c.batt_duty = self.charger.block()
+        else:
+            c.batt_duty = self.charger.update(m, dt, floor)
+            fault |= self.charger.fault
+        c.stage = ST_BLOCKED if self.charger.blocked else self.charger.stage
+
+        # supercap
+        if m.cap_mv < _NEG_MV or m.cap_mv > p.cap_fs_mv or self._taps_implausible():
+            fault |= F_CAP_SENSOR
+            c.cap_duty = self.clamp.block()
+        else:
+            c.cap_duty = self.clamp.update(m, floor + _CAP_FLOOR_MV)
+            fault |= self.clamp.fault
+        c.bal_mask = self.clamp.bal_mask
+        c.fault = fault
+
+    def _taps_implausible(self):
+        m = self.m
+        top = 2 * self.p.cap_cell_rating_mv
+        for i in range(m.n_taps):
+            if m.cell_mv[i] < _NEG_MV or m.cell_mv[i] > top:
+                return 1
+        return 0

@@ -1,0 +1,107 @@
+# USB port check. The 5 V converter runs when the bus is high enough (with hysteresis); the
+# port's load switch closes only after VBUS and the data lines have matched the configured
+# signalling scheme for the debounce time, and opens in the same tick either stops matching.
+#
+# Levels (shared/reference/check-values.md):
+#  - dcp: BC1.2 1.4.7 dedicated charging port, D+ shorted to D- (0-200 ohm). Before the port
+#    closes the board sources its D+ probe (V_DP_SRC 0.5-0.7 V, BC1.2 1.4.2) and D- must follow
+#    above V_DAT_REF's top, 0.4 V (BC1.2 1.4.4). While the port is on (probe off) the lines must
+#    stay equal and below V_LGC's bottom, 0.8 V.
+#  - div_*: resistor dividers from VBUS giving D+/D- levels of 2.0 V or 2.7 V at VBUS 5.00 V
+#    (common practice). The windows scale with the measured VBUS (the dividers track it).
+#  - short_1v2: D+ tied to D-, biased to about 1.2 V at VBUS 5.00 V (common practice).
+from controller.compat import const
+from controller.signals import F_USB_LINES
+
+M_NONE = const(0)  # usb_match: the readings match no scheme
+# usb_match for a scheme is 1 + its index in profile.SCHEMES
+M_DCP = const(1)
+M_DIV_2V0_2V7 = const(2)
+M_DIV_2V7_2V0 = const(3)
+M_DIV_2V7_2V7 = const(4)
+M_SHORT_1V2 = const(5)
+MATCH_NAMES = ("none", "dcp", "div_2v0_2v7", "div_2v7_2v0", "div_2v7_2v7", "short_1v2")
+
+_VNOM_MV = const(5000)  # divider levels are quoted at VBUS = 5.00 V
+_L20 = const(2000)
+_L27 = const(2700)
+_L12 = const(1200)
+_DP_SRC_MIN_MV = const(500)  # BC1.2 1.4.2 V_DP_SRC
+_DP_SRC_MAX_MV = const(700)
+_DAT_REF_MAX_MV = const(400)  # BC1.2 1.4.4 V_DAT_REF
+_LGC_MIN_MV = const(800)  # BC1.2 1.4.4 V_LGC
+
+
+def _near(x_mv, nom_mv, vbus_mv, tol_pct):
+    level = (nom_mv * vbus_mv) // _VNOM_MV
+    w = (level * tol_pct) // 100
+    return level - w <= x_mv <= level + w
+
+
+def classify(dp_mv, dm_mv, vbus_mv, probe, tol_pct, short_mv):
+    """Which scheme the data lines match (M_*). probe: 1 if the D+ probe was sourced."""
+    d = dp_mv - dm_mv
+    shorted = -short_mv <= d <= short_mv
+    if probe:
+        if shorted and _DP_SRC_MIN_MV <= dp_mv <= _DP_SRC_MAX_MV and dm_mv > _DAT_REF_MAX_MV:
+            return M_DCP
+        return M_NONE
+    if shorted:
+        if _near(dp_mv, _L12, vbus_mv, tol_pct) and _near(dm_mv, _L12, vbus_mv, tol_pct):
+            return M_SHORT_1V2
+        if dp_mv < _LGC_MIN_MV and dm_mv < _LGC_MIN_MV:
+            return M_DCP
+    if _near(dp_mv, _L20, vbus_mv, tol_pct):
+        if _near(dm_mv, _L27, vbus_mv, tol_pct):
+            return M_DIV_2V0_2V7
+    elif _near(dp_mv, _L27, vbus_mv, tol_pct):
+        if _near(dm_mv, _L20, vbus_mv, tol_pct):
+            return M_DIV_2V7_2V0
+        if _near(dm_mv, _L27, vbus_mv, tol_pct):
+            return M_DIV_2V7_2V7
+    return M_NONE
+
+
+class UsbPort:
+    def __init__(self, p):
+        self.p = p
+        self.want = p.scheme + 1  # the usb_match value the profile asks for
+        self.conv = 0  # 5 V converter enabled
+        self.on = 0  # port load switch closed
+        self.probe = 0  # D+ probe sourced by this tick's command
+        self.probe_was = 0  # probe state while this tick's readings were taken
+        self.match = M_NONE  # scheme the latest readings match
+        self.ok_ms = 0  # how long VBUS and lines have matched, ms
+        self.fault = 0  # this tick's fault bits (F_USB_LINES while the converter runs unmatched)
+
+    def block(self):
+        self.conv = 0
+        self.on = 0
+        self.probe = 0
+        self.probe_was = 0
+        self.ok_ms = 0
+        self.match = M_NONE
+
+    def update(self, m, dt_ms):
+        p = self.p
+        b = m.bus_mv
+        if self.conv:
+            if b < p.usb_bus_min_mv - p.usb_bus_hyst_mv:
+                self.conv = 0
+        elif b >= p.usb_bus_min_mv:
+            self.conv = 1
+        vbus = m.usb_vbus_mv
+        self.match = classify(m.usb_dp_mv, m.usb_dm_mv, vbus, self.probe_was,
+                              p.line_tol_pct, p.short_tol_mv)
+        ok = self.conv and p.vbus_min_mv <= vbus <= p.vbus_max_mv and self.match == self.want
+        if ok:
+            self.ok_ms += dt_ms
+            if self.ok_ms >= p.usb_debounce_ms:
+                self.on = 1
+            self.fault = 0
+        else:
+            self.ok_ms = 0
+            self.on = 0
+            self.fault = F_USB_LINES if self.conv else 0
+        self.probe = 1 if (self.want == M_DCP and self.conv and not self.on) else 0
+        self.probe_was = self.probe
