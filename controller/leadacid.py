@@ -49,6 +49,7 @@ class LeadAcidCharger:
         self.eq_ms = 0  # time spent charging in equalize, ms
         self.eq_armed = 1  # 1 when an equalize request (rising edge) may start one
         self.lost = 0  # 1 after the battery was absent or reversed: restart at bulk
+        self.out_on = 0  # discharge switch (loads, bus diode): low-voltage disconnect state
         self.loop = BuckLoop()
 
     def _enter(self, stage):
@@ -63,6 +64,14 @@ class LeadAcidCharger:
         self.blocked = 1
         self.loop.stop()
         return 0
+
+    def discharge(self, batt_mv):
+        """Low-voltage disconnect with hysteresis; returns the discharge switch state."""
+        if batt_mv < self.p.absent_mv or batt_mv < self.p.lvd_mv:
+            self.out_on = 0
+        elif batt_mv >= self.p.lvr_mv:
+            self.out_on = 1
+        return self.out_on
 
     def update(self, m, dt_ms, floor_mv):
         """One tick. Returns the battery converter duty."""

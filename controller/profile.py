@@ -37,6 +37,8 @@ class Profile:
         self.rebulk_hold_ms = 0  # ... held this long, ms
         self.absent_mv = 0  # below this the battery counts as absent or open, mV (block)
         self.over_margin_mv = 0  # ceiling margin: 100 mV per 12 V block, scaled per cell
+        self.lvd_mv = 0  # low-voltage disconnect: discharge switch opens below this, mV (block)
+        self.lvr_mv = 0  # ... and closes again at or above this, mV (block)
         # supercap bank
         self.cap_cells = 0
         self.cap_cell_rating_mv = 0  # maker's rated cell voltage, mV
@@ -123,3 +125,9 @@ def load(path):
         return from_dict(doc)
     except ConfigError as e:
         raise ConfigError("%s: %s" % (path, e))
+
+
+def default_path():
+    """Path of the shipped default profile (next to this module)."""
+    here = __file__.rsplit("/", 1)[0] if "/" in __file__ else "."
+    return here + "/default_profile.json"

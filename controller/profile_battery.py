@@ -74,3 +74,11 @@ def battery(p, b):
     absent = _num(b, s, "absent_v_per_cell", 0.5, 1.75, 1.0, "V/cell")
     p.absent_mv = to_int(absent * p.cells, 1000)
     p.over_margin_mv = (100 * p.cells) // 6
+    lvd = _num(b, s, "disconnect_v_per_cell", 1.60, 1.95, 1.75, "V/cell",
+               "makers' discharge tables end at 1.75 V/cell at C/10; deeper sulphates the plates")
+    lvr = _num(b, s, "reconnect_v_per_cell", 1.90, 2.20, 2.10, "V/cell")
+    if lvr <= lvd:
+        _fail(s + ".reconnect_v_per_cell", lvr, "must be above disconnect_v_per_cell = %r" % lvd,
+              "the discharge switch would chatter")
+    p.lvd_mv = to_int(lvd * p.cells, 1000)
+    p.lvr_mv = to_int(lvr * p.cells, 1000)

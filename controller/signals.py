@@ -84,16 +84,19 @@ class Commands:
         self.usb_conv = 0  # 1: 5 V converter enabled
         self.usb_on = 0  # 1: port load switch closed (phone powered)
         self.usb_probe = 0  # 1: board sources its D+ probe voltage (dedicated-port check)
+        self.batt_out = 0  # 1: battery discharge switch closed (loads, and the bus via its diode)
         self.bal_mask = 0  # supercap balancing bleeders, bit i for cell i
         self.stage = 0  # battery stage code (ST_*)
         self.usb_match = 0  # which signalling scheme the data lines match (usbport.SCHEME_*)
         self.fault = 0  # fault bits (F_*)
 
     def set_safe(self):
-        """Storage and USB off. The dump load is left to the overvoltage guard."""
+        """Storage converters, USB and the battery discharge switch off. The dump load is left
+        to the overvoltage guard."""
         self.batt_duty = 0
         self.cap_duty = 0
         self.usb_conv = 0
         self.usb_on = 0
         self.usb_probe = 0
         self.bal_mask = 0
+        self.batt_out = 0

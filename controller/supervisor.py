@@ -7,6 +7,8 @@
 #     reading turns off the outputs that reading protects; the battery temperature is judged
 #     by the charger (no charging without a plausible temperature).
 #  2. Overvoltage guard: tripped or locked out -> safe state, dump on while tripped.
+#     (The battery discharge switch is opened too: with the bus out of bounds nothing on it is
+#     to be trusted; the battery's own loads wait for the latch.)
 #  3. USB: the converter starts at the lowest bus of all (usb.bus_min_v), so phones are served
 #     first when the source is weak.
 #  4. Battery: its converter backs off when the bus falls below the floor.
@@ -103,7 +105,9 @@ class Supervisor:
                 or m.batt_ma > p.batt_fs_ma):
             fault |= F_BATT_SENSOR
             c.batt_duty = self.charger.block()
+            c.batt_out = 0
         else:
+            c.batt_out = self.charger.discharge(m.batt_mv)
             c.batt_duty = self.charger.update(m, dt, floor)
             fault |= self.charger.fault
         c.stage = ST_BLOCKED if self.charger.blocked else self.charger.stage
