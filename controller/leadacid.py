@@ -28,12 +28,25 @@ def comp_mv(p, cell_mv, temp_dc):
     return p.cells * cell_mv + (p.cells * p.tc_uv_dc_cell * (temp_dc - p.ref_temp_dc)) // 1000
 
 
-def stage_cell_mv(p, stage):
+# Hard caps on the compensated setpoints, mV per cell: cold-battery compensation may not
+# carry a setpoint past the caps that bound the profile itself (profile_battery.py).
+_CAP_ABS_CELL_MV = const(2500)
+_CAP_EQ_CELL_MV = const(2600)
+_CAP_FLOAT_CELL_MV = const(2350)
+
+
+def ceiling_mv(p, stage, temp_dc):
+    """The stage's compensated voltage ceiling for the block, mV, within the hard caps."""
     if stage == ST_ABSORPTION or stage == ST_BULK:
-        return p.abs_cell_mv
-    if stage == ST_EQUALIZE:
-        return p.eq_cell_mv
-    return p.float_cell_mv
+        v = comp_mv(p, p.abs_cell_mv, temp_dc)
+        top = p.cells * _CAP_ABS_CELL_MV
+    elif stage == ST_EQUALIZE:
+        v = comp_mv(p, p.eq_cell_mv, temp_dc)
+        top = p.cells * _CAP_EQ_CELL_MV
+    else:
+        v = comp_mv(p, p.float_cell_mv, temp_dc)
+        top = p.cells * _CAP_FLOAT_CELL_MV
+    return top if v > top else v
 
 
 class LeadAcidCharger:
@@ -42,14 +55,15 @@ class LeadAcidCharger:
         self.stage = ST_BULK  # charging stage (not ST_BLOCKED: blocking is reported apart)
         self.blocked = 1  # 1 while charging is forbidden this tick
         self.fault = 0  # this tick's battery fault bits
-        self.ceiling_mv = 0  # this tick's compensated ceiling, mV
+        self.ceil_mv = 0  # this tick's compensated ceiling, mV
         self.abs_ms = 0  # time spent charging in absorption, ms
         self.tail_ms = 0  # time at voltage with current at or below the tail, ms
         self.rebulk_ms = 0  # time in float below the re-bulk threshold, ms
         self.eq_ms = 0  # time spent charging in equalize, ms
         self.eq_armed = 1  # 1 when an equalize request (rising edge) may start one
         self.lost = 0  # 1 after the battery was absent or reversed: restart at bulk
-        self.out_on = 0  # discharge switch (loads, bus diode): low-voltage disconnect state
+        self.out_on = 0  # discharge switch (loads, bus diode) closed
+        self.lvd = 0  # 1 after a low-voltage disconnect, until the battery reaches lvr_mv
         self.loop = BuckLoop()
 
     def _enter(self, stage):
@@ -67,10 +81,12 @@ class LeadAcidCharger:
 
     def discharge(self, batt_mv):
         """Low-voltage disconnect with hysteresis; returns the discharge switch state."""
-        if batt_mv < self.p.absent_mv or batt_mv < self.p.lvd_mv:
-            self.out_on = 0
-        elif batt_mv >= self.p.lvr_mv:
-            self.out_on = 1
+        p = self.p
+        if batt_mv < p.lvd_mv:
+            self.lvd = 1
+        elif batt_mv >= p.lvr_mv:
+            self.lvd = 0
+        self.out_on = 0 if (self.lvd or batt_mv < p.absent_mv) else 1
         return self.out_on
 
     def update(self, m, dt_ms, floor_mv):
@@ -96,8 +112,8 @@ class LeadAcidCharger:
             self._enter(ST_BULK)
         self.blocked = 0
         self._advance(m, dt_ms)
-        ceil = comp_mv(p, stage_cell_mv(p, self.stage), t)
-        self.ceiling_mv = ceil
+        ceil = ceiling_mv(p, self.stage, t)
+        self.ceil_mv = ceil
         if v > ceil + p.over_margin_mv:
             self.fault = F_BATT_OVER
             self.loop.stop()
@@ -116,12 +132,12 @@ class LeadAcidCharger:
             self.eq_armed = 1
         want_eq = m.eq_req and self.eq_armed and p.eq_cell_mv > 0
         if st == ST_BULK:
-            if v >= comp_mv(p, p.abs_cell_mv, t) - band:
+            if v >= ceiling_mv(p, ST_ABSORPTION, t) - band:
                 self._enter(ST_ABSORPTION)
         elif st == ST_ABSORPTION:
             if charging:
                 self.abs_ms += dt_ms
-            if v >= comp_mv(p, p.abs_cell_mv, t) - band and 0 <= i <= p.tail_ma:
+            if v >= ceiling_mv(p, ST_ABSORPTION, t) - band and i <= p.tail_ma:
                 self.tail_ms += dt_ms
             else:
                 self.tail_ms = 0

@@ -1,0 +1,52 @@
+# Small helpers shared by the host commands: finding the MicroPython port, loading profiles
+# with host-side error wrapping, and the safety caution shown by commands that set limits.
+import shutil
+import sys
+from pathlib import Path
+
+from controller import profile as _profile
+from controller.compat import ConfigError
+from host_sim.errors import UserError
+
+ROOT = Path(__file__).resolve().parents[1]
+
+CAUTION = (
+    "CAUTION: lead-acid batteries give off hydrogen when overcharged (ventilate, no sparks or "
+    "flames); batteries and supercaps deliver large short-circuit currents (fuse them, insulate "
+    "tools); dump resistors get hot; gears and cranks pinch. These settings are starting points: "
+    "follow the battery and supercap makers' data, local codes and licensed practice."
+)
+
+
+def caution():
+    print(CAUTION, file=sys.stderr)
+
+
+def find_micropython():
+    for cand in (Path(sys.executable).parent / "micropython", ROOT / ".venv" / "bin" / "micropython"):
+        if cand.exists():
+            return str(cand)
+    return shutil.which("micropython")
+
+
+def profile_path(arg):
+    """The profile file named on the command line, or the shipped default."""
+    if arg is None:
+        return _profile.default_path()
+    p = Path(arg)
+    if not p.exists():
+        builtin = ROOT / "host_sim" / "profiles" / (arg + ".json")
+        if builtin.exists():
+            return str(builtin)
+        if arg == "default":
+            return _profile.default_path()
+        raise UserError("%s: no such profile file (nor a built-in profile of that name)" % arg)
+    return str(p)
+
+
+def load_profile(arg):
+    path = profile_path(arg)
+    try:
+        return _profile.load(path), path
+    except ConfigError as e:
+        raise UserError(str(e))
