@@ -1,0 +1,149 @@
+# Closed-loop runner: the controller ticks at the profile's period through the same
+# Measurements/Commands path a board uses; the plant advances one period between ticks (and
+# sub-steps inside as its stiffness needs). The controller's clock starts one minute before
+# the 2**30 ms wrap, so every run also crosses the wrap.
+import math
+import sys
+import time
+
+import numpy as np
+
+from controller.compat import TICKS_MASK, TICKS_PERIOD
+from controller.leadacid import ceiling_mv
+from controller.signals import ST_BLOCKED
+from controller.supervisor import Supervisor
+from host_sim.limitcheck import LimitChecker
+from host_sim.plant.plant import Plant
+
+CLOCK_START_MS = TICKS_PERIOD - 60000
+
+# timeseries.csv columns: name -> (unit, meaning). Documented in docs/simulate.md.
+COLUMNS = (
+    ("t_s", "s", "simulated time"),
+    ("drive_rpm", "rpm", "drive (crank, pedal or rotor) speed; negative when reversed"),
+    ("machine_rpm", "rpm", "generator shaft speed"),
+    ("p_in_w", "W", "mechanical power from the drive"),
+    ("p_elec_w", "W", "generator electrical output"),
+    ("p_ideal_w", "W", "wind/hydro: max steady-state electrical power at this wind speed"),
+    ("bus_v", "V", "rectified bus"),
+    ("src_a", "A", "current from the bridge into the bus"),
+    ("batt_v", "V", "battery terminal voltage"),
+    ("batt_a", "A", "battery current, + into the battery"),
+    ("batt_temp_c", "C", "battery temperature"),
+    ("batt_soc", "1", "battery state of charge, 0..1"),
+    ("stage", "", "battery stage the controller reports"),
+    ("ceiling_v", "V", "active compensated ceiling at the true temperature (blank if blocked)"),
+    ("cap_v", "V", "supercap bank voltage"),
+    ("cap_a", "A", "supercap current, + into the bank"),
+    ("cell_v_max", "V", "highest supercap cell"),
+    ("usb_vbus_v", "V", "5 V converter output"),
+    ("usb_a", "A", "current to the USB devices"),
+    ("usb_conv", "0/1", "5 V converter enabled"),
+    ("usb_on", "0/1", "port switch closed"),
+    ("dump_on", "0/1", "dump load duty above zero"),
+    ("batt_duty", "1e-4", "battery converter duty"),
+    ("cap_duty", "1e-4", "supercap converter duty"),
+    ("dump_duty", "1e-4", "dump load duty"),
+    ("fault", "bits", "controller fault bits (controller/signals.py)"),
+)
+COLUMN_NAMES = tuple(c[0] for c in COLUMNS)
+
+
+class RunResult:
+    def __init__(self, scenario, series, limits, ledger, ticks, wall_s):
+        self.scenario = scenario
+        self.series = series  # dict name -> numpy array (stage as int codes)
+        self.limits = limits  # dict name -> limitcheck.Limit
+        self.ledger = ledger  # dict of joules and balance_error_pct
+        self.ticks = ticks
+        self.wall_s = wall_s
+
+    @property
+    def all_held(self):
+        return all(x.held for x in self.limits.values())
+
+    def speedup(self):
+        return self.scenario.duration_s / self.wall_s if self.wall_s > 0 else math.inf
+
+
+class Progress:
+    """Progress on stderr for runs that take more than a couple of seconds."""
+
+    def __init__(self, label, total, enabled=True):
+        self.label = label
+        self.total = total
+        self.enabled = enabled
+        self.t0 = time.monotonic()
+        self.next_t = self.t0 + 2.0
+        self.shown = False
+
+    def update(self, done):
+        now = time.monotonic()
+        if not self.enabled or now < self.next_t:
+            return
+        self.next_t = now + 1.0
+        frac = done / self.total if self.total else 1.0
+        eta = (now - self.t0) * (1 - frac) / frac if frac > 0 else 0
+        end = "\r" if sys.stderr.isatty() else "\n"
+        print("%s: %5.1f %%  (about %.0f s left)" % (self.label, 100 * frac, eta), end=end,
+              file=sys.stderr, flush=True)
+        self.shown = True
+
+    def close(self):
+        if self.shown and sys.stderr.isatty():
+            print(file=sys.stderr)
+
+
+def run(sc, progress=True, every=1):
+    """Run scenario sc in closed loop. every: keep one row in `every` periods."""
+    p = sc.profile
+    sup = Supervisor(p)
+    plant = Plant(sc)
+    period_ms = p.period_ms
+    dt_s = period_ms / 1000.0
+    n = int(round(sc.duration_s * 1000.0 / period_ms))
+    checker = LimitChecker(p, dt_s, bus_limit_v(sc, p))
+    rows = []
+    prog = Progress("simulate %s" % sc.name, n, progress)
+    now_ms = CLOCK_START_MS
+    m, c = sup.m, sup.c
+    t0 = time.perf_counter()
+    for k in range(n):
+        plant.measure(m)
+        sup.tick(now_ms)
+        plant.step(c, dt_s)
+        s = plant.snapshot()
+        t_s = (k + 1) * dt_s
+        checker.check(t_s, s, c, c.stage)
+        if k % every == 0:
+            rows.append(_row(s, c, p))
+        now_ms = (now_ms + period_ms) & TICKS_MASK
+        if (k & 255) == 0:
+            prog.update(k)
+    wall = time.perf_counter() - t0
+    prog.close()
+    led = plant.ledger()
+    limits = checker.finish(n * dt_s, led["balance_error_pct"])
+    series = {name: np.array([r[i] for r in rows], dtype=float)
+              for i, name in enumerate(COLUMN_NAMES)}
+    return RunResult(sc, series, limits, led, n, wall)
+
+
+def bus_limit_v(sc, p):
+    """Bus limit for the closed-loop check: the trip plus the surge clamp's margin."""
+    margin = getattr(sc, "clamp_margin_v", None)
+    if margin is None:
+        margin = sc.doc.get("bus", {}).get("clamp_margin_v", 4.0)
+    return p.ovp_trip_mv / 1000.0 + float(margin)
+
+
+def _row(s, c, p):
+    stage = c.stage
+    ceil = (ceiling_mv(p, stage, int(round(s["batt_temp_c"] * 10))) / 1000.0
+            if stage != ST_BLOCKED else math.nan)
+    return (s["t_s"], s["drive_rpm"], s["machine_rpm"], s["p_in_w"], s["p_elec_w"],
+            s.get("p_ideal_w", math.nan), s["bus_v"], s["src_a"], s["batt_v"], s["batt_a"],
+            s["batt_temp_c"], s["batt_soc"], stage, ceil, s["cap_v"], s["cap_a"],
+            s["cell_v_max"], s["usb_vbus_v"], s["usb_a"], c.usb_conv, c.usb_on,
+            1 if c.dump_duty > 0 else 0, c.batt_duty, c.cap_duty, c.dump_duty, c.fault)
+

@@ -1,0 +1,166 @@
+# `spinrail simulate SCENARIO --out DIR` and `spinrail demo`: the main job. Runs the controller
+# against the plant in closed loop and writes timeseries.csv, summary.json and report.png.
+# Exit status: 0 every limit held, 1 a limit was crossed (which, when, by how much), 2 bad input.
+import math
+import sys
+from pathlib import Path
+
+from controller.signals import FAULT_NAMES, STAGE_NAMES
+from host_sim import report, runner
+from host_sim.common import caution
+from host_sim.errors import UserError
+from host_sim.fileio import atomic_open, write_json
+
+DEMO = "demo"
+
+
+def load(name_or_path):
+    from host_sim.scenario import ScenarioError, load_scenario
+    try:
+        return load_scenario(name_or_path)
+    except ScenarioError as e:
+        raise UserError(str(e))
+
+
+def write_timeseries(result, path):
+    s = result.series
+    n = len(s["t_s"])
+    cols = runner.COLUMN_NAMES
+    with atomic_open(path) as f:
+        f.write(",".join(cols) + "\n")
+        for i in range(n):
+            out = []
+            for name in cols:
+                v = s[name][i]
+                if name == "stage":
+                    out.append(STAGE_NAMES[int(v)])
+                elif name in ("usb_conv", "usb_on", "dump_on", "batt_duty", "cap_duty",
+                              "dump_duty", "fault"):
+                    out.append("%d" % v)
+                elif math.isnan(v):
+                    out.append("")
+                else:
+                    out.append("%.4g" % v if abs(v) >= 1e4 else "%.4f" % v)
+            f.write(",".join(out) + "\n")
+
+
+def summary(result):
+    sc = result.scenario
+    faults = 0
+    for f in result.series["fault"]:
+        faults |= int(f)
+    stages = result.series["stage"].astype(int)
+    dt = sc.profile.period_ms / 1000.0
+    return {
+        "scenario": sc.name,
+        "source": str(sc.source),
+        "duration_s": sc.duration_s,
+        "seed": sc.seed,
+        "ticks": result.ticks,
+        "wall_s": round(result.wall_s, 3),
+        "sim_speedup": round(result.speedup(), 1),
+        "all_held": result.all_held,
+        "limits": {k: v.as_dict() for k, v in result.limits.items()},
+        "energy_j": {k: (round(v, 3) if isinstance(v, float) else v)
+                     for k, v in result.ledger.items() if k != "balance_error_pct"},
+        "balance_error_pct": round(result.ledger["balance_error_pct"], 5),
+        "stage_time_s": {STAGE_NAMES[i]: round(float((stages == i).sum()) * dt * _every(result), 2)
+                         for i in range(len(STAGE_NAMES))},
+        "faults_seen": [FAULT_NAMES[i] for i in range(len(FAULT_NAMES)) if faults >> i & 1],
+        "final": {"batt_soc": round(float(result.series["batt_soc"][-1]), 4),
+                  "batt_v": round(float(result.series["batt_v"][-1]), 3),
+                  "cap_v": round(float(result.series["cap_v"][-1]), 3)},
+    }
+
+
+def _every(result):
+    n = len(result.series["t_s"])
+    return result.ticks / n if n else 1
+
+
+def print_table(summ, out=sys.stdout):
+    e = summ["energy_j"]
+    print("scenario %s: %.0f s simulated in %.2f s (x%.0f)" % (
+        summ["scenario"], summ["duration_s"], summ["wall_s"], summ["sim_speedup"]), file=out)
+    print("%-14s %-5s %10s %10s %9s  %s" % ("limit", "held", "worst", "limit", "at s", "unit"),
+          file=out)
+    for name, d in summ["limits"].items():
+        if d["worst"] is None:
+            print("%-14s %-5s %10s %10s %9s  %s" % (name, "yes", "-", "-", "-", "(not exercised)"),
+                  file=out)
+            continue
+        print("%-14s %-5s %10.3f %10.3f %9.1f  %s" % (
+            name, "yes" if d["held"] else "NO", d["worst"], d["limit"], d["t_worst_s"], d["unit"]),
+            file=out)
+    print("energy: in %.1f kJ; battery %+.1f kJ, supercap %+.1f kJ, USB %.1f kJ, loads %.1f kJ; "
+          "balance error %.3f %%" % (e.get("drive_in_j", 0) / 1e3, e.get("batt_stored_j", 0) / 1e3,
+                                     e.get("cap_stored_j", 0) / 1e3, e.get("usb_out_j", 0) / 1e3,
+                                     e.get("loads_out_j", 0) / 1e3, summ["balance_error_pct"]),
+          file=out)
+    st = ", ".join("%s %.0f s" % (k, v) for k, v in summ["stage_time_s"].items() if v > 0)
+    print("battery stages: %s; final SOC %.1f %%" % (st, 100 * summ["final"]["batt_soc"]), file=out)
+    if summ["faults_seen"]:
+        print("faults seen: %s" % ", ".join(summ["faults_seen"]), file=out)
+
+
+def simulate(name_or_path, out_dir, every=1, progress=True):
+    sc = load(name_or_path)
+    out = Path(out_dir)
+    result = runner.run(sc, progress=progress, every=every)
+    summ = summary(result)
+    out.mkdir(parents=True, exist_ok=True)
+    write_timeseries(result, out / "timeseries.csv")
+    write_json(out / "summary.json", summ)
+    report.write(result, out / "report.png")
+    return result, summ
+
+
+def finish(result, summ, out_dir):
+    print_table(summ)
+    print("wrote %s/{timeseries.csv, summary.json, report.png}" % out_dir, file=sys.stderr)
+    crossed = [(k, d) for k, d in summ["limits"].items() if not d["held"]]
+    for k, d in crossed:
+        print("spinrail: limit %s crossed at %.2f s: worst %.4g %s against %.4g %s (by %.4g)" % (
+            k, d["first_crossed_s"], d["worst"], d["unit"], d["limit"], d["unit"],
+            -d["margin"]), file=sys.stderr)
+    return 1 if crossed else 0
+
+
+def cmd_simulate(args):
+    caution()
+    if args.every < 1:
+        raise UserError("--every = %d: allowed 1 or more" % args.every)
+    result, summ = simulate(args.scenario, args.out, every=args.every, progress=not args.quiet)
+    return finish(result, summ, args.out)
+
+
+def cmd_demo(args):
+    caution()
+    result, summ = simulate(DEMO, args.out, progress=not args.quiet)
+    return finish(result, summ, args.out)
+
+
+def register(sub):
+    from host_sim.scenario import builtin_names
+    names = ", ".join(builtin_names())
+    sp = sub.add_parser(
+        "simulate", help="run a scenario in closed loop and report every limit",
+        description="Run the controller against the plant simulator in closed loop. Writes "
+                    "timeseries.csv, summary.json and report.png to --out, prints a summary table "
+                    "and exits 0 when every limit held, 1 when any was crossed (saying which, when "
+                    "and by how much), 2 on bad input. SCENARIO is a JSON file or a built-in name "
+                    "(%s). Formats: docs/scenario.md, docs/simulate.md." % names)
+    sp.add_argument("scenario", metavar="SCENARIO", help="scenario file or built-in name")
+    sp.add_argument("--out", required=True, help="output folder (created if missing)")
+    sp.add_argument("--every", type=int, default=1,
+                    help="keep one timeseries row in N control periods (default 1: every period)")
+    sp.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    sp.set_defaults(func=cmd_simulate)
+    dp = sub.add_parser(
+        "demo", help="run the built-in demo scenario (a pedal charging point at a field clinic)",
+        description="Run the built-in demo scenario: a pedal charging point at a field clinic, a "
+                    "rider who tires over twenty minutes, a part-charged AGM battery in a warm room, a "
+                    "supercap bank and two phones. Same outputs and exit status as simulate.")
+    dp.add_argument("--out", default="spinrail-out/demo", help="output folder (default: %(default)s)")
+    dp.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    dp.set_defaults(func=cmd_demo)
