@@ -1,15 +1,14 @@
 # Installation profile: JSON in volts, amps, seconds and degrees C; validated once at load and
 # converted to the integer units the tick uses (mV, mA, ms, deci-degrees C).
-# The rules live in profile_fields.py; this module holds the resolved settings.
+# The rules live in profile_fields.py, profile_battery.py and profile_system.py, imported only
+# while a profile is validated: a board can drop them afterwards (forget_rules) and get their
+# RAM back for the control loop.
 import json
+import sys
 
 from controller.compat import ConfigError
-from controller import profile_fields as _f
-from controller.profile_battery import battery
-from controller import profile_system as _s
 
-CHEMISTRIES = _f.CHEMISTRIES
-SCHEMES = _f.SCHEMES
+_RULES = ("controller.profile_fields", "controller.profile_battery", "controller.profile_system")
 
 
 class Profile:
@@ -91,6 +90,9 @@ class Profile:
 
 def from_dict(doc):
     """Validate a parsed profile document and return a Profile. Raises ConfigError."""
+    from controller import profile_fields as _f
+    from controller import profile_system as _s
+    from controller.profile_battery import battery
     if not isinstance(doc, dict):
         raise ConfigError("profile: expected a JSON object at the top level")
     for key in doc:
@@ -125,6 +127,18 @@ def load(path):
         return from_dict(doc)
     except ConfigError as e:
         raise ConfigError("%s: %s" % (path, e))
+
+
+def forget_rules():
+    """Drop the validation modules (a board calls this after loading its profile, before the
+    control loop, so their code does not occupy the heap)."""
+    import controller
+    for name in _RULES:
+        if name in sys.modules:
+            del sys.modules[name]
+        short = name.split(".")[1]
+        if hasattr(controller, short):
+            delattr(controller, short)
 
 
 def default_path():

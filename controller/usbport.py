@@ -14,7 +14,7 @@ from controller.compat import const
 from controller.signals import F_USB_LINES
 
 M_NONE = const(0)  # usb_match: the readings match no scheme
-# usb_match for a scheme is 1 + its index in profile.SCHEMES
+# usb_match for a scheme is 1 + its index in profile_fields.SCHEMES
 M_DCP = const(1)
 M_DIV_2V0_2V7 = const(2)
 M_DIV_2V7_2V0 = const(3)
