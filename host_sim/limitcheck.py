@@ -3,13 +3,34 @@
 # it happened, for summary.json and the exit status of `spinrail simulate`.
 import math
 
-from controller.leadacid import ceiling_mv
-from controller.signals import ST_BLOCKED
+from controller.signals import ST_ABSORPTION, ST_BLOCKED, ST_BULK, ST_EQUALIZE
 
 BATT_A_TOL = 1.10  # battery current may exceed its limit by 10 % ...
 CAP_TOL = 1.01  # supercap bank may exceed its clamp by 1 %
 CHARGING_A = 0.05  # the ceiling is judged while charge current flows (a resting battery relaxes)
 LEDGER_TOL_PCT = 0.5
+
+
+# Hard caps on compensated setpoints, V/cell (docs/profile.md). Repeated here on purpose: the
+# checker is an oracle written apart from the controller, so a controller bug cannot move it.
+_CAP_ABS = 2.50
+_CAP_EQ = 2.60
+_CAP_FLOAT = 2.35
+
+
+def ceiling_v(p, stage, temp_c):
+    """Active stage ceiling of the block in volts at a battery temperature, computed in floats
+    from the profile: cells x (V_cell + coeff x (T - T_ref)), T clamped to the charging window,
+    within the hard caps."""
+    t = min(max(temp_c, p.temp_min_dc / 10.0), p.temp_max_dc / 10.0)
+    coeff_v = p.tc_uv_dc_cell * 10e-6  # uV per deci-degree -> V per degree
+    if stage in (ST_BULK, ST_ABSORPTION):
+        cell, cap = p.abs_cell_mv / 1000.0, _CAP_ABS
+    elif stage == ST_EQUALIZE:
+        cell, cap = p.eq_cell_mv / 1000.0, _CAP_EQ
+    else:
+        cell, cap = p.float_cell_mv / 1000.0, _CAP_FLOAT
+    return p.cells * min(cell + coeff_v * (t - p.ref_temp_dc / 10.0), cap)
 
 
 class Limit:
@@ -73,12 +94,11 @@ class LimitChecker:
         stage: the battery stage the controller reported."""
         p = self.p
         L = self.lim
-        temp_dc = int(round(s["batt_temp_c"] * 10))
         if s["batt_a"] > CHARGING_A and s.get("batt_connected", 1):
             if stage == ST_BLOCKED:
                 ceil_v = 0.0  # no charge current may flow while blocked
             else:
-                ceil_v = ceiling_mv(p, stage, temp_dc) / 1000.0
+                ceil_v = ceiling_v(p, stage, s["batt_temp_c"])
             L["batt_ceiling"].see(t_s, s["batt_v"], ceil_v + self.margin_v)
         lim_a = p.chg_limit_ma / 1000.0
         if s["batt_a"] > lim_a * BATT_A_TOL:

@@ -9,10 +9,9 @@ import time
 import numpy as np
 
 from controller.compat import TICKS_MASK, TICKS_PERIOD
-from controller.leadacid import ceiling_mv
 from controller.signals import ST_BLOCKED
 from controller.supervisor import Supervisor
-from host_sim.limitcheck import LimitChecker
+from host_sim.limitcheck import LimitChecker, ceiling_v
 from host_sim.plant.plant import Plant
 
 CLOCK_START_MS = TICKS_PERIOD - 60000
@@ -139,8 +138,7 @@ def bus_limit_v(sc, p):
 
 def _row(s, c, p):
     stage = c.stage
-    ceil = (ceiling_mv(p, stage, int(round(s["batt_temp_c"] * 10))) / 1000.0
-            if stage != ST_BLOCKED else math.nan)
+    ceil = ceiling_v(p, stage, s["batt_temp_c"]) if stage != ST_BLOCKED else math.nan
     return (s["t_s"], s["drive_rpm"], s["machine_rpm"], s["p_in_w"], s["p_elec_w"],
             s.get("p_ideal_w", math.nan), s["bus_v"], s["src_a"], s["batt_v"], s["batt_a"],
             s["batt_temp_c"], s["batt_soc"], stage, ceil, s["cap_v"], s["cap_a"],
