@@ -8,10 +8,13 @@ from controller.signals import DUTY_MAX
 
 _DUTY_TOP = const(9500)  # a buck cannot run at 100 %: keep the switch's off-time
 _KV_SHIFT = const(1)  # u step = voltage error / 2
-_KI_DIV = const(16)  # u step = current error / 16 (mA -> mV; ~0.15 ohm output path)
+_KI_DIV = const(16)  # u step = current error / 16 (mA -> mV; ~0.15 ohm output path) ...
+_KI_OVER_DIV = const(4)  # ... and / 4 above the limit: an overcurrent is cut within a period
 _KB_DIV = const(32)  # u step = bus error / 32 (a loaded generator sags several mV per mV)
 _STEP_UP_MV = const(60)  # slowest to rise: soft start, and a tiring rider is not stalled
 _STEP_DN_MV = const(2000)  # quick to fall
+_CUT_MV = const(500)  # an overcurrent drops u this far below the output
+_JUMP_MV = const(600)  # a bus rising faster than this per period is a surge: cut as well
 _UNDER_MV = const(300)  # u never winds further below the output than this
 
 
@@ -19,10 +22,12 @@ class BuckLoop:
     def __init__(self):
         self.u_mv = 0  # commanded converter output voltage, mV; 0 when idle
         self.duty = 0  # last duty, 0..DUTY_MAX
+        self.bus_last_mv = 0  # bus at the previous update, mV (feedforward of a rising bus)
 
     def stop(self):
         self.u_mv = 0
         self.duty = 0
+        self.bus_last_mv = 0
 
     def update(self, out_mv, ceil_mv, out_ma, lim_ma, bus_mv, floor_mv, u_cap_mv):
         """One regulation step; returns the new duty. u_cap_mv caps u (for a current-limited
@@ -30,7 +35,8 @@ class BuckLoop:
         if self.u_mv == 0:
             self.u_mv = out_mv  # start at the zero-current point
         step = (ceil_mv - out_mv) >> _KV_SHIFT
-        s = (lim_ma - out_ma) // _KI_DIV
+        s = lim_ma - (lim_ma >> 5) - out_ma  # aim 3 % under the limit: room for noise
+        s = s // _KI_DIV if s >= 0 else s // _KI_OVER_DIV
         if s < step:
             step = s
         s = (bus_mv - floor_mv) // _KB_DIV
@@ -42,20 +48,36 @@ class BuckLoop:
             step = -_STEP_DN_MV
         if out_mv >= ceil_mv and step > 0:
             step = 0  # at or above the ceiling the output never rises
-        u = self.u_mv + step
+        last = self.bus_last_mv
+        if out_ma - lim_ma > lim_ma >> 5 or (last and bus_mv - last > _JUMP_MV):
+            u = out_mv - _CUT_MV  # 3 % over the limit: below the zero-current point at once (a
+            # store reconnected under a high u, a bus that jumped within the period; a bus
+            # that jumps more than _JUMP_MV in one period will likely go on: a surge); ramp again
+        else:
+            u = self.u_mv + step
         if u > u_cap_mv:
             u = u_cap_mv
-        if u < out_mv - _UNDER_MV:
-            u = out_mv - _UNDER_MV
+        if u < out_mv - _UNDER_MV and out_ma <= lim_ma:
+            u = out_mv - _UNDER_MV  # (over the current limit u may fall further: a wrong
+            # bus reading or a stiff source must not hold the current up)
         if u < 1:
             u = 1
         self.u_mv = u
         if bus_mv <= 0:
             self.duty = 0
             return 0
-        d = (u * DUTY_MAX) // bus_mv
+        # duty holds for the coming period: if the bus is rising, divide by where it is going
+        # (one period's rise ahead), so a bus freed of a load does not surge the output
+        ff = bus_mv
+        if self.bus_last_mv and bus_mv > self.bus_last_mv:
+            ff = bus_mv + (bus_mv - self.bus_last_mv)
+        self.bus_last_mv = bus_mv
+        d = (u * DUTY_MAX) // ff
         if d > _DUTY_TOP:
             d = _DUTY_TOP
+            # anti-windup: u no higher than this bus can make, so a bus that jumps later
+            # restarts from the output instead of from a wound-up u
+            self.u_mv = (bus_mv * _DUTY_TOP) // DUTY_MAX
         if d < 0:
             d = 0
         if out_mv >= ceil_mv and d > self.duty:

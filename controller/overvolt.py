@@ -16,10 +16,15 @@ class OverVoltGuard:
         self.trip_at = [0] * p.lockout_trips  # ring of recent trip times (now_ms)
         self.n_trips = 0  # valid entries in trip_at (up to lockout_trips)
         self.next = 0  # ring index for the next trip
+        self.last_ms = 0  # now_ms of the newest trip in trip_at
         self.trips_total = 0  # trips since start (telemetry)
 
     def update(self, bus_mv, dt_ms, now_ms, reset_req):
         p = self.p
+        if self.n_trips and ticks_diff(now_ms, self.last_ms) >= p.trip_window_ms:
+            # the newest trip left the window, so did the older ones: forget them now, before
+            # they age past ticks_diff's 2**29 ms and read as recent again
+            self.n_trips = 0
         if bus_mv >= p.ovp_trip_mv:
             self.below_ms = 0
             if not self.tripped:
@@ -41,6 +46,7 @@ class OverVoltGuard:
     def _record(self, now_ms):
         p = self.p
         self.trip_at[self.next] = now_ms
+        self.last_ms = now_ms
         self.next += 1
         if self.next >= p.lockout_trips:
             self.next = 0

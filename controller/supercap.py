@@ -1,5 +1,8 @@
 # Supercap clamp: charge the bank up to the clamp (a derating below its rating) with a current
 # limit, stop at the clamp, restart only below clamp - hysteresis; never charge at or above it.
+# The regulator aims half the hysteresis below the clamp, so the charge current tapers off
+# instead of stopping dead at the clamp (a sudden load step on the bus upsets the battery's
+# converter); the clamp itself stays the hard stop.
 # A bank at 0 V is a short circuit: the current limit comes from the current sensor where the
 # board has one, and from u <= bank + limit x path resistance always, so it holds without one.
 # With cell taps, a cell above the cell mean by the threshold gets its bleeder, and any cell
@@ -36,8 +39,8 @@ class CapClamp:
         if self.full or cell_hot:
             self.loop.stop()
             return 0
-        return self.loop.update(v, p.cap_clamp_mv, m.cap_ma, p.cap_limit_ma, m.bus_mv, floor_mv,
-                                v + p.cap_headroom_mv)
+        return self.loop.update(v, p.cap_clamp_mv - (p.cap_hyst_mv >> 1), m.cap_ma, p.cap_limit_ma,
+                                m.bus_mv, floor_mv, v + p.cap_headroom_mv)
 
     def _balance(self, m):
         """Set the bleeders; return 1 if any cell is at or above its rating."""

@@ -15,7 +15,7 @@
 #  5. Supercap: backs off at a floor _CAP_FLOOR_MV higher, so it yields first as the drive
 #     slows and takes what the battery leaves.
 #  With MPPT the floor is the hill-climbing setpoint instead of the profile's fixed floor.
-from controller.compat import const, ticks_diff
+from controller.compat import TICKS_MASK, const, ticks_diff
 from controller.leadacid import LeadAcidCharger
 from controller.mppt import HillClimb
 from controller.overvolt import OverVoltGuard
@@ -29,6 +29,8 @@ from controller.usbport import UsbPort
 _NEG_MV = const(-500)  # a voltage reading may sit this far below zero (offset, noise)
 _CAP_FLOOR_MV = const(500)  # the supercap backs off this far above the battery's floor
 _DT_MAX_PERIODS = const(4)  # a late tick counts as at most this many periods
+_XCHK_MV = const(300)  # a buck delivering current from a bus this far below its output ...
+_XCHK_MA = const(200)  # ... at more than this is physically impossible: the bus reading lies
 
 
 class Supervisor:
@@ -42,7 +44,7 @@ class Supervisor:
         self.ovp = OverVoltGuard(p)
         self.mppt = HillClimb(p) if p.mppt else None
         self.last_ms = 0  # now_ms of the previous tick
-        self.ticks = 0  # ticks run
+        self.ticks = 0  # ticks run, wrapping from 2**30 - 1 to 1 (0 only before the first)
         self.dt_max_ms = _DT_MAX_PERIODS * p.period_ms
 
     def tick(self, now_ms):
@@ -57,7 +59,7 @@ class Supervisor:
         elif dt > self.dt_max_ms:
             dt = self.dt_max_ms
         self.last_ms = now_ms
-        self.ticks += 1
+        self.ticks = self.ticks + 1 if self.ticks < TICKS_MASK else 1  # stays a small int
 
         fault = 0
         bus = m.bus_mv
@@ -65,6 +67,11 @@ class Supervisor:
             fault = F_BUS_SENSOR
             if bus > p.bus_fs_mv:
                 bus = p.ovp_trip_mv  # an over-range bus is treated as a trip
+            elif bus < _NEG_MV:
+                bus = p.ovp_recover_mv  # bus unknown: no trip, and no time below recovery
+        elif self._bus_contradicted():
+            fault = F_BUS_SENSOR
+            bus = p.ovp_recover_mv
         self.ovp.update(bus, dt, now_ms, m.reset_req)
         if self.ovp.tripped:
             fault |= F_OVP
@@ -113,7 +120,8 @@ class Supervisor:
         c.stage = ST_BLOCKED if self.charger.blocked else self.charger.stage
 
         # supercap
-        if m.cap_mv < _NEG_MV or m.cap_mv > p.cap_fs_mv or self._taps_implausible():
+        if (m.cap_mv < _NEG_MV or m.cap_mv > p.cap_fs_mv or m.cap_ma < -p.batt_fs_ma
+                or m.cap_ma > p.batt_fs_ma or self._taps_implausible()):
             fault |= F_CAP_SENSOR
             c.cap_duty = self.clamp.block()
         else:
@@ -121,6 +129,21 @@ class Supervisor:
             fault |= self.clamp.fault
         c.bal_mask = self.clamp.bal_mask
         c.fault = fault
+
+    def _bus_contradicted(self):
+        """A buck cannot push current into a store that sits above its input: a bus reading
+        below the battery (or bank) while that converter runs and current flows is wrong."""
+        m = self.m
+        c = self.c
+        p = self.p
+        b = m.bus_mv + _XCHK_MV
+        # only plausible readings may contradict the bus: an implausible one is its own fault
+        if (c.batt_duty and _XCHK_MA < m.batt_ma <= p.batt_fs_ma
+                and b < m.batt_mv <= p.batt_fs_mv):
+            return 1
+        if c.cap_duty and _XCHK_MA < m.cap_ma <= p.batt_fs_ma and b < m.cap_mv <= p.cap_fs_mv:
+            return 1
+        return 0
 
     def _taps_implausible(self):
         m = self.m

@@ -95,7 +95,8 @@ class UsbPort:
                               p.line_tol_pct, p.short_tol_mv)
         ok = self.conv and p.vbus_min_mv <= vbus <= p.vbus_max_mv and self.match == self.want
         if ok:
-            self.ok_ms += dt_ms
+            if self.ok_ms < p.usb_debounce_ms:
+                self.ok_ms += dt_ms  # stops counting once on: stays a small int
             if self.ok_ms >= p.usb_debounce_ms:
                 self.on = 1
             self.fault = 0

@@ -84,7 +84,8 @@ class LimitChecker:
             "cap_clamp": Limit("cap_clamp", "V", "supercap bank <= clamp x 1.01"),
             "cap_cell": Limit("cap_cell", "V", "every supercap cell <= its rating"),
             "usb_vbus": Limit("usb_vbus", "V", "VBUS inside 4.75-5.25 V (the profile's window) "
-                              "whenever the port is on; margin to the nearer edge"),
+                              "whenever the port is switched on, judged on the true VBUS at the "
+                              "tick that decided it; margin to the nearer edge"),
             "bus": Limit("bus", "V", "bus <= overvoltage trip + surge-clamp margin"),
             "ledger": Limit("ledger", "%", "energy ledger balance error <= 0.5 %"),
         }
@@ -110,14 +111,18 @@ class LimitChecker:
                               else min(s["batt_a"], lim_a * BATT_A_TOL), lim_a * BATT_A_TOL)
         L["cap_clamp"].see(t_s, s["cap_v"], p.cap_clamp_mv / 1000.0 * CAP_TOL)
         L["cap_cell"].see(t_s, s["cell_v_max"], p.cap_cell_rating_mv / 1000.0)
-        if c.usb_on:
-            v = s["usb_vbus_v"]
+        L["bus"].see(t_s, s["bus_v"], self.bus_limit_v)
+
+    def check_usb(self, t_s, vbus_v, usb_on):
+        """At a tick: the port may be on only if the true VBUS the controller was shown (its
+        reading taken now) is inside the window."""
+        if usb_on:
+            p = self.p
             lo = p.vbus_min_mv / 1000.0
             hi = p.vbus_max_mv / 1000.0
             # two-sided window: the margin is the distance to the nearer edge
-            edge = lo if v - lo < hi - v else hi
-            L["usb_vbus"].see(t_s, v, edge, min(v - lo, hi - v))
-        L["bus"].see(t_s, s["bus_v"], self.bus_limit_v)
+            edge = lo if vbus_v - lo < hi - vbus_v else hi
+            self.lim["usb_vbus"].see(t_s, vbus_v, edge, min(vbus_v - lo, hi - vbus_v))
 
     def finish(self, t_s, balance_error_pct):
         self.lim["ledger"].see(t_s, abs(balance_error_pct), LEDGER_TOL_PCT)

@@ -106,10 +106,12 @@ def run(sc, progress=True, every=1):
     prog = Progress("simulate %s" % sc.name, n, progress)
     now_ms = CLOCK_START_MS
     m, c = sup.m, sup.c
+    s = plant.snapshot()
     t0 = time.perf_counter()
     for k in range(n):
         plant.measure(m)
         sup.tick(now_ms)
+        checker.check_usb(k * dt_s, s["usb_vbus_v"], c.usb_on)
         plant.step(c, dt_s)
         s = plant.snapshot()
         t_s = (k + 1) * dt_s

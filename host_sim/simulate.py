@@ -1,9 +1,10 @@
 # `spinrail simulate SCENARIO --out DIR` and `spinrail demo`: the main job. Runs the controller
 # against the plant in closed loop and writes timeseries.csv, summary.json and report.png.
 # Exit status: 0 every limit held, 1 a limit was crossed (which, when, by how much), 2 bad input.
-import math
 import sys
 from pathlib import Path
+
+import numpy as np
 
 from controller.signals import FAULT_NAMES, STAGE_NAMES
 from host_sim import report, runner
@@ -22,26 +23,32 @@ def load(name_or_path):
         raise UserError(str(e))
 
 
+_INT_COLS = ("usb_conv", "usb_on", "dump_on", "batt_duty", "cap_duty", "dump_duty", "fault")
+
+
+def _column_text(name, v):
+    if name == "stage":
+        return np.array(STAGE_NAMES)[v.astype(int)]
+    if name in _INT_COLS:
+        return np.char.mod("%d", v.astype(np.int64))
+    txt = np.char.mod("%.4f", v)
+    big = np.abs(v) >= 1e5
+    if big.any():
+        txt[big] = np.char.mod("%.6g", v[big])
+    txt[np.isnan(v)] = ""
+    return txt
+
+
 def write_timeseries(result, path):
+    """timeseries.csv, one row per kept control period (columns: runner.COLUMNS)."""
     s = result.series
-    n = len(s["t_s"])
     cols = runner.COLUMN_NAMES
+    text = [_column_text(name, s[name]) for name in cols]
     with atomic_open(path) as f:
         f.write(",".join(cols) + "\n")
-        for i in range(n):
-            out = []
-            for name in cols:
-                v = s[name][i]
-                if name == "stage":
-                    out.append(STAGE_NAMES[int(v)])
-                elif name in ("usb_conv", "usb_on", "dump_on", "batt_duty", "cap_duty",
-                              "dump_duty", "fault"):
-                    out.append("%d" % v)
-                elif math.isnan(v):
-                    out.append("")
-                else:
-                    out.append("%.4g" % v if abs(v) >= 1e4 else "%.4f" % v)
-            f.write(",".join(out) + "\n")
+        for row in zip(*text):
+            f.write(",".join(row))
+            f.write("\n")
 
 
 def summary(result):
