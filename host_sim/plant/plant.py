@@ -570,6 +570,7 @@ class Plant:
             "batt_connected": 1 if b.connected else 0,
             "cap_v": self.cap_v,
             "cap_a": self.cap_a,
+            "cap_v_int": bank.v_sum if bank.present else 0.0,
             "cell_v_max": bank.cell_v_max() if bank.present else 0.0,
             "usb_vbus_v": self.vbus if self.usb_run else 0.0,
             "usb_a": self.usb_a,
