@@ -14,7 +14,6 @@ _KB_DIV = const(32)  # u step = bus error / 32 (a loaded generator sags several 
 _STEP_UP_MV = const(60)  # slowest to rise: soft start, and a tiring rider is not stalled
 _STEP_DN_MV = const(2000)  # quick to fall
 _CUT_MV = const(500)  # an overcurrent drops u this far below the output
-_JUMP_MV = const(600)  # a bus rising faster than this per period is a surge: cut as well
 _UNDER_MV = const(300)  # u never winds further below the output than this
 
 
@@ -49,10 +48,10 @@ class BuckLoop:
         if out_mv >= ceil_mv and step > 0:
             step = 0  # at or above the ceiling the output never rises
         last = self.bus_last_mv
-        if out_ma - lim_ma > lim_ma >> 5 or (last and bus_mv - last > _JUMP_MV):
+        cut = out_ma - lim_ma > lim_ma >> 5
+        if cut:
             u = out_mv - _CUT_MV  # 3 % over the limit: below the zero-current point at once (a
-            # store reconnected under a high u, a bus that jumped within the period; a bus
-            # that jumps more than _JUMP_MV in one period will likely go on: a surge); ramp again
+            # store reconnected under a high u, a bus that jumped within the period); ramp again
         else:
             u = self.u_mv + step
         if u > u_cap_mv:
@@ -69,8 +68,10 @@ class BuckLoop:
         # duty holds for the coming period: if the bus is rising, divide by where it is going
         # (one period's rise ahead), so a bus freed of a load does not surge the output
         ff = bus_mv
-        if self.bus_last_mv and bus_mv > self.bus_last_mv:
-            ff = bus_mv + (bus_mv - self.bus_last_mv)
+        if cut:
+            ff = bus_mv + (bus_mv >> 3)  # after a cut, no current even if the bus rises 12 %
+        elif last and bus_mv > last:
+            ff = bus_mv + (bus_mv - last)
         self.bus_last_mv = bus_mv
         d = (u * DUTY_MAX) // ff
         if d > _DUTY_TOP:
@@ -82,5 +83,8 @@ class BuckLoop:
             d = 0
         if out_mv >= ceil_mv and d > self.duty:
             d = self.duty  # the feedforward must not raise it either (a falling bus)
+        if cut and d > self.duty - (self.duty >> 2):
+            d = self.duty - (self.duty >> 2)  # and a cut lowers the duty by a quarter at least,
+            # whatever the bus reading says
         self.duty = d
         return d

@@ -46,6 +46,8 @@ class Supervisor:
         self.last_ms = 0  # now_ms of the previous tick
         self.ticks = 0  # ticks run, wrapping from 2**30 - 1 to 1 (0 only before the first)
         self.dt_max_ms = _DT_MAX_PERIODS * p.period_ms
+        self.bus_lie = 0  # 1 after the bus reading contradicted a running converter, until
+        # it reads above the battery and the bank again (a stuck-low bus sensor)
 
     def tick(self, now_ms):
         """Run one control period on self.m; results in self.c. Integer-only, allocates
@@ -132,7 +134,9 @@ class Supervisor:
 
     def _bus_contradicted(self):
         """A buck cannot push current into a store that sits above its input: a bus reading
-        below the battery (or bank) while that converter runs and current flows is wrong."""
+        below the battery (or bank) while that converter runs and current flows is wrong.
+        Latched until the bus reads above both stores again (a stuck-low bus sensor would
+        otherwise let the converters restart every other tick)."""
         m = self.m
         c = self.c
         p = self.p
@@ -140,10 +144,12 @@ class Supervisor:
         # only plausible readings may contradict the bus: an implausible one is its own fault
         if (c.batt_duty and _XCHK_MA < m.batt_ma <= p.batt_fs_ma
                 and b < m.batt_mv <= p.batt_fs_mv):
-            return 1
-        if c.cap_duty and _XCHK_MA < m.cap_ma <= p.batt_fs_ma and b < m.cap_mv <= p.cap_fs_mv:
-            return 1
-        return 0
+            self.bus_lie = 1
+        elif c.cap_duty and _XCHK_MA < m.cap_ma <= p.batt_fs_ma and b < m.cap_mv <= p.cap_fs_mv:
+            self.bus_lie = 1
+        elif self.bus_lie and m.bus_mv > m.batt_mv + _XCHK_MV and m.bus_mv > m.cap_mv + _XCHK_MV:
+            self.bus_lie = 0
+        return self.bus_lie
 
     def _taps_implausible(self):
         m = self.m

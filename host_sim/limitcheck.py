@@ -81,7 +81,8 @@ class LimitChecker:
                                   "active compensated ceiling + 0.1 V per 12 V block"),
             "batt_current": Limit("batt_current", "A", "battery charge current <= limit x 1.1 "
                                   "(transients shorter than one control period excepted)"),
-            "cap_clamp": Limit("cap_clamp", "V", "supercap bank <= clamp x 1.01"),
+            "cap_clamp": Limit("cap_clamp", "V", "supercap bank (behind its ESR: the voltage "
+                               "that stresses the cells) <= clamp x 1.01"),
             "cap_cell": Limit("cap_cell", "V", "every supercap cell <= its rating"),
             "usb_vbus": Limit("usb_vbus", "V", "VBUS inside 4.75-5.25 V (the profile's window) "
                               "whenever the port is switched on, judged on the true VBUS at the "
@@ -109,7 +110,7 @@ class LimitChecker:
         # a current above the band counts once it has lasted longer than one control period
         L["batt_current"].see(t_s, s["batt_a"] if self.over_i_s > self.period_s + 1e-9
                               else min(s["batt_a"], lim_a * BATT_A_TOL), lim_a * BATT_A_TOL)
-        L["cap_clamp"].see(t_s, s["cap_v"], p.cap_clamp_mv / 1000.0 * CAP_TOL)
+        L["cap_clamp"].see(t_s, s.get("cap_v_int", s["cap_v"]), p.cap_clamp_mv / 1000.0 * CAP_TOL)
         L["cap_cell"].see(t_s, s["cell_v_max"], p.cap_cell_rating_mv / 1000.0)
         L["bus"].see(t_s, s["bus_v"], self.bus_limit_v)
 
