@@ -14,6 +14,8 @@ _KB_DIV = const(32)  # u step = bus error / 32 (a loaded generator sags several 
 _STEP_UP_MV = const(60)  # slowest to rise: soft start, and a tiring rider is not stalled
 _STEP_DN_MV = const(2000)  # quick to fall
 _CUT_MV = const(500)  # an overcurrent drops u this far below the output
+_HEAD_MV = const(300)  # below output + this the bus gives the buck no headroom: off
+_SETTLE_MV = const(300)  # a stopped converter starts only on a bus that moved less than this
 _UNDER_MV = const(300)  # u never winds further below the output than this
 
 
@@ -31,8 +33,20 @@ class BuckLoop:
     def update(self, out_mv, ceil_mv, out_ma, lim_ma, bus_mv, floor_mv, u_cap_mv):
         """One regulation step; returns the new duty. u_cap_mv caps u (for a current-limited
         path without a current sensor); pass a large value for none."""
+        last = self.bus_last_mv
+        if bus_mv < out_mv + _HEAD_MV:
+            # no headroom: a buck cannot deliver, and a duty parked high would turn a bus that
+            # comes back (a surge, a store unplugged from it) into a current spike
+            self.stop()
+            self.bus_last_mv = bus_mv
+            return 0
         if self.u_mv == 0:
-            self.u_mv = out_mv  # start at the zero-current point
+            # start only on a bus that held still over the last period, at the zero-current
+            # point
+            self.bus_last_mv = bus_mv
+            if last == 0 or bus_mv - last > _SETTLE_MV or last - bus_mv > _SETTLE_MV:
+                return 0
+            self.u_mv = out_mv
         step = (ceil_mv - out_mv) >> _KV_SHIFT
         s = lim_ma - (lim_ma >> 5) - out_ma  # aim 3 % under the limit: room for noise
         s = s // _KI_DIV if s >= 0 else s // _KI_OVER_DIV
@@ -47,7 +61,6 @@ class BuckLoop:
             step = -_STEP_DN_MV
         if out_mv >= ceil_mv and step > 0:
             step = 0  # at or above the ceiling the output never rises
-        last = self.bus_last_mv
         cut = out_ma - lim_ma > lim_ma >> 5
         if cut:
             u = out_mv - _CUT_MV  # 3 % over the limit: below the zero-current point at once (a

@@ -34,10 +34,13 @@ def fault_events(draw, duration_s):
             ev["sensor"] = draw(st.sampled_from(("batt_v", "bus_v", "cap_v", "usb_dp")))
             ev["reads"] = draw(st.sampled_from(("zero", "full")))
         elif kind == "bus_surge":
-            # surges a correctly sized clamp and dump load can hold (a stiffer source than
-            # 40 V behind 10 ohm needs a stronger clamp than the scenarios' default)
-            ev["surge_v"] = draw(st.sampled_from((30.0, 35.0, 40.0)))
-            ev["surge_ohm"] = 10.0
+            # surges above the trip (the guard must act) whose open-circuit voltage stays within
+            # trip + clamp margin (24 + 4 V with the built-ins): a stiffer surge into an
+            # unloaded bus needs a stronger clamp than the scenarios' default, and the
+            # simulation rightly shows it as a crossing (see fault_parade for a 40 V surge
+            # into a loaded bus)
+            ev["surge_v"] = draw(st.sampled_from((25.0, 26.5, 28.0)))
+            ev["surge_ohm"] = draw(st.sampled_from((1.0, 4.7, 10.0)))
             ev["duration_s"] = draw(st.sampled_from((0.05, 0.3, 1.0)))
         elif kind == "wrong_divider_resistor":
             ev["resistor"] = draw(st.sampled_from(("dp_top", "dm_bottom", "batt_top", "bus_bottom")))
