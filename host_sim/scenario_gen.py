@@ -1,0 +1,597 @@
+# Random scenarios for `spinrail fuzz`, and the deterministic shrinker for its failures.
+#
+# Example i of a campaign is drawn from numpy's Generator seeded with (seed, i) alone, over a
+# base scenario (a built-in or the user's file): drive, ambient -10 to 50 C, battery SOC and
+# capacity (aging), component tolerances, supercap state, USB network tolerances and assembly
+# faults, and timed faults a correct design must survive. Which worker draws it, or how many
+# there are, cannot change it. Everything drawn is scenario JSON, so an example is also a file
+# that `spinrail simulate` replays.
+#
+# The shrinker takes a failing example and, while the same limit still fails, shortens the
+# duration, drops events and moves perturbed fields back to the base, in a fixed order.
+import copy
+import json
+import math
+import re
+
+import numpy as np
+
+from host_sim.scenario import DRIVE_FIELDS, SCHEMA, load_scenario
+from host_sim.plant.sensors import ADC_REF_V, CHANNELS, R_BOTTOM
+
+# Timed faults and environment moves the generator chooses among (the drive stop counts as a
+# fault: the rider walks away). Weights are ours: faults on the storage side come up most.
+EVENT_CHOICES = ("battery_disconnected", "temp_sensor_open", "sensor_stuck", "sensor_open",
+                 "wrong_divider_resistor", "bus_surge", "drive_stop", "ambient")
+STUCK_VALUES = {  # plausible readings a stuck input freezes at (inside each sensor's range)
+    "batt_v": (0.0, 12.0, 12.8, 13.5, 15.0), "bus_v": (0.0, 12.0, 18.0), "cap_v": (0.0, 5.0, 12.0),
+    "batt_a": (0.0, 0.5, -0.5), "usb_vbus": (0.0, 5.0), "src_a": (0.0, 2.0), "cap_a": (0.0, 1.0),
+}
+OPEN_SENSORS = ("batt_v", "bus_v", "cap_v", "batt_a", "usb_vbus", "usb_dp", "usb_dm")
+NET_FAULTS = ("open", "short_to_ground", "lines_shorted", "decade_up", "decade_down", "swapped")
+NET_RESISTORS = ("dp_top", "dp_bottom", "dm_top", "dm_bottom", "between")
+TOL_CHANNELS = ("bus_v", "src_a", "batt_v", "batt_a", "cap_v", "cap_a", "usb_vbus")
+SURGE_MAX_S = 1.0  # longest bus surge drawn, s
+
+
+# ---- bases ------------------------------------------------------------------------------------
+
+def load_base(name_or_path):
+    """A base scenario for the generator: {"name", "raw", "resolved", "facts"}, JSON-able so it
+    travels to any worker. A profile given as a path is inlined, so the base (and every file
+    written from it) no longer depends on the folder it came from. Raises ScenarioError."""
+    sc = load_scenario(name_or_path)
+    src = str(sc.source)
+    with open(src) as fh:
+        raw = json.load(fh)
+    prof = raw.get("profile", "default")
+    if isinstance(prof, str) and ("/" in prof or prof.endswith(".json")):
+        raw["profile"] = sc.profile_doc
+    return {"name": sc.name, "src": src, "raw": raw, "resolved": _jsonable(sc.doc),
+            "facts": facts(sc)}
+
+
+def _jsonable(x):
+    return json.loads(json.dumps(x))
+
+
+def facts(sc):
+    """What the generator needs to know about a base beyond its document."""
+    p = sc.profile
+    d = sc.doc
+    dividers = {}
+    for attr, _bip, div in CHANNELS.values():
+        if div:
+            fs_v = getattr(p, attr) / 1000.0
+            dividers[div + "_top"] = R_BOTTOM * (fs_v / ADC_REF_V - 1.0)
+            dividers[div + "_bottom"] = R_BOTTOM
+    b = d["bus"]
+    trip_v = p.ovp_trip_mv / 1000.0
+    lim_v = trip_v + b["clamp_margin_v"]
+    return {
+        "duration_s": d["duration_s"],
+        "drive_kind": d["drive"]["kind"],
+        "cap_rating_v": p.cap_cell_rating_mv / 1000.0,
+        # highest starting cell voltage that leaves the bank below its clamp (a bank that
+        # starts above the clamp would fail the check before the controller could act)
+        "cap_v0_max": min(p.cap_cell_rating_mv, p.cap_clamp_mv / d["supercap"]["cells"]) / 1000.0,
+        "dividers": dividers,
+        "trip_v": trip_v,
+        "bus_limit_v": lim_v,
+        "surge_max_a": surge_max_a(trip_v, lim_v, b["clamp_knee_v"], b["clamp_alpha"],
+                                   b["dump_ohm"]),
+    }
+
+
+def surge_max_a(trip_v, lim_v, knee_v, alpha, dump_ohm):
+    """Largest surge current the bus protection is rated to absorb at the bus limit: what the
+    clamp conducts there (the plant's model, 1 mA x (V / knee)^alpha) plus the dump resistor
+    fully on at the trip (the guard switches it in at the trip)."""
+    return 1e-3 * (lim_v / knee_v) ** alpha + trip_v / dump_ohm
+
+
+# ---- schema lookups (shared with `spinrail sweep`) -------------------------------------------
+
+def parse_path(text):
+    """'usb.devices[0].max_a' or 'usb.devices.0.max_a' -> ['usb', 'devices', 0, 'max_a']."""
+    parts = []
+    for seg in text.split("."):
+        m = re.fullmatch(r"([A-Za-z_][A-Za-z0-9_]*)((?:\[\d+\])*)", seg)
+        if seg.isdigit():
+            parts.append(int(seg))
+        elif m:
+            parts.append(m.group(1))
+            parts.extend(int(x) for x in re.findall(r"\[(\d+)\]", m.group(2)))
+        else:
+            raise KeyError("'%s' is not a field name" % seg)
+    return parts
+
+
+def path_text(parts):
+    out = ""
+    for p in parts:
+        out += "[%d]" % p if isinstance(p, int) else ("." + p if out else p)
+    return out
+
+
+def schema_field(parts, drive_kind):
+    """The schema entry (scenario.F) at a path; KeyError naming what exists there."""
+    spec = SCHEMA
+    f = None
+    i = 0
+    while i < len(parts):
+        k = parts[i]
+        here = path_text(parts[:i]) or "(top)"
+        if isinstance(k, int):
+            if f is None or f.kind != "L":
+                raise KeyError("%s is not a list" % here)
+            spec = f.sub
+            f = None
+            i += 1
+            continue
+        if spec is None:
+            raise KeyError("%s has no fields (it is a single value)" % here)
+        if f is not None and f.kind == "L":
+            raise KeyError("%s is a list: give an index, e.g. %s[0].%s" % (here, here, k))
+        if k not in spec:
+            raise KeyError("%s has no field '%s'%s; fields there: %s"
+                           % (here, k, " (drive kind %s)" % drive_kind if here == "drive" else "",
+                              ", ".join(sorted(spec))))
+        f = spec[k]
+        if f.kind == "DRIVE":
+            spec = dict(DRIVE_FIELDS[drive_kind])
+            f = None
+            if i + 1 < len(parts) and parts[i + 1] == "kind":
+                raise KeyError("drive.kind cannot be varied (the other drive fields depend on it)")
+        elif f.kind == "O":
+            spec = f.sub
+        elif f.kind == "L":
+            spec = None
+        else:
+            spec = None
+        i += 1
+    if f is None:
+        raise KeyError("%s is a section, not a field" % (path_text(parts) or "(top)"))
+    return f
+
+
+def get_path(doc, parts, default=None):
+    x = doc
+    for p in parts:
+        if isinstance(p, int):
+            if not isinstance(x, list) or p >= len(x):
+                return default
+            x = x[p]
+        else:
+            if not isinstance(x, dict) or p not in x:
+                return default
+            x = x[p]
+    return x
+
+
+def set_path(doc, parts, value):
+    """Set a value in a raw document, creating sections as needed. A list item must exist."""
+    x = doc
+    for j, p in enumerate(parts[:-1]):
+        if isinstance(p, int):
+            if not isinstance(x, list) or p >= len(x):
+                raise KeyError("%s has no item %d" % (path_text(parts[:j]), p))
+            x = x[p]
+        else:
+            nxt = parts[j + 1]
+            if p not in x or x[p] is None:
+                if isinstance(nxt, int):
+                    raise KeyError("%s has no item %d" % (path_text(parts[:j + 1]), nxt))
+                x[p] = {}
+            x = x[p]
+    last = parts[-1]
+    if isinstance(last, int):
+        if not isinstance(x, list) or last >= len(x):
+            raise KeyError("%s has no item %d" % (path_text(parts[:-1]), last))
+    x[last] = value
+
+
+def clip(value, f):
+    """Keep a drawn number inside the schema's range for its field."""
+    return min(max(value, f.lo), f.hi)
+
+
+# ---- generation -------------------------------------------------------------------------------
+
+def _r(x, nd=3):
+    """Round for a readable file (4 significant digits at least)."""
+    if x == 0 or not math.isfinite(x):
+        return float(x)
+    mag = int(math.floor(math.log10(abs(x))))
+    return float(round(x, max(nd, 3 - mag)))
+
+
+class _Gen:
+    def __init__(self, base, rng, max_duration_s):
+        self.base = base
+        self.rng = rng
+        self.doc = copy.deepcopy(base["raw"])
+        self.res = base["resolved"]
+        self.kind = base["facts"]["drive_kind"]
+        self.max_duration_s = max_duration_s
+
+    def u(self, lo, hi):
+        return float(self.rng.uniform(lo, hi))
+
+    def chance(self, p):
+        return bool(self.rng.random() < p)
+
+    def pick(self, seq):
+        return seq[int(self.rng.integers(len(seq)))]
+
+    def field(self, path):
+        return schema_field(parse_path(path), self.kind)
+
+    def put(self, path, value, nd=3):
+        """Set a number, clipped to the schema's range and rounded."""
+        parts = parse_path(path)
+        f = schema_field(parts, self.kind)
+        set_path(self.doc, parts, _r(clip(value, f), nd))
+
+    def scale(self, path, lo, hi):
+        """Multiply the base's resolved value by a factor drawn in [lo, hi]."""
+        x = get_path(self.res, parse_path(path))
+        k = self.u(lo, hi)
+        if isinstance(x, (int, float)) and not isinstance(x, bool):
+            self.put(path, x * k)
+
+
+def generate(bases, seed, i, max_duration_s=300.0):
+    """Example i of a campaign: (scenario document, index of its base). Only (seed, i) and the
+    bases decide it."""
+    rng = np.random.default_rng([int(seed), int(i)])
+    bi = int(rng.integers(len(bases)))
+    base = bases[bi]
+    g = _Gen(base, rng, max_duration_s)
+    doc = g.doc
+    hi = min(base["facts"]["duration_s"], max_duration_s)
+    dur = _r(g.u(min(20.0, hi), hi), 1)
+    doc["duration_s"] = dur
+    doc["seed"] = int(rng.integers(0, 2**32))  # the plant's own draws: tolerances, noise, wind
+    doc["name"] = "fuzz_%s_s%d_i%d" % (base["name"], seed, i)
+    doc["description"] = ("spinrail fuzz example %d of seed %d over %s (%s)"
+                          % (i, seed, base["name"], doc.get("description", "")))[:2000]
+    _environment(g)
+    _components(g)
+    _drive(g, dur)
+    _usb(g)
+    _events(g, dur)
+    return doc, bi
+
+
+def _environment(g):
+    amb = g.u(-10.0, 50.0)
+    g.put("battery.ambient_c", amb, 1)
+    g.put("battery.temp0_c", amb + g.u(-5.0, 5.0), 1)
+    g.put("battery.soc0", g.u(0.05, 0.98))
+    g.scale("battery.capacity_ah", 0.5, 1.0)  # aging: the block holds less than its label
+    g.scale("battery.r0_mohm_ah", 1.0, 2.0)  # ... and its resistance rises
+    g.put("supercap.v0_per_cell", g.u(0.0, 0.98) * g.base["facts"]["cap_v0_max"])
+    g.put("rectifier.temp_c", amb + g.u(0.0, 40.0), 1)
+
+
+def _components(g):
+    g.scale("machine.ke_v_per_krpm", 0.9, 1.1)
+    g.scale("machine.ra_ohm", 0.8, 1.3)
+    g.scale("bus.capacitance_uf", 0.6, 1.2)  # electrolytics lose capacitance as they age
+    for conv in ("batt", "cap"):
+        g.scale("converters.%s.r_out_ohm" % conv, 0.7, 1.5)
+        g.scale("converters.%s.efficiency" % conv, 0.95, 1.03)
+    g.scale("supercap.cell_f", 0.8, 1.2)
+    g.put("supercap.cap_spread_pct", g.u(0.0, 5.0), 2)  # the 10 % clamp derate covers this
+    g.scale("supercap.esr_mohm", 0.7, 2.0)
+    g.put("supercap.leak_spread_pct", g.u(0.0, 60.0), 1)
+    # sensor chains: within the board's stated gain tolerance (the schema default, 0.5 %)
+    for ch in TOL_CHANNELS:
+        g.put("sensors.%s.gain_tol_pct" % ch, g.u(0.0, 0.5))
+        g.put("sensors.%s.noise_lsb" % ch, g.u(0.2, 1.5))
+        g.put("sensors.%s.offset_lsb" % ch, g.u(-2.0, 2.0))
+    g.put("sensors.batt_temp.offset_c", g.u(-1.0, 1.0))
+
+
+def _drive(g, dur):
+    k = g.kind
+    if k in ("pedal", "crank"):
+        g.put("drive.effort", g.u(0.3, 1.4))
+        g.scale("drive.cadence_rpm", 0.5, 1.6)
+        g.scale("drive.torque_max_nm", 0.7, 1.3)
+        start = get_path(g.res, ["drive", "power_start_w"]) * g.u(0.6, 1.5)
+        g.put("drive.power_start_w", start, 1)
+        start = g.doc["drive"]["power_start_w"]
+        sus = get_path(g.res, ["drive", "power_sustained_w"]) * g.u(0.6, 1.2)
+        g.put("drive.power_sustained_w", min(sus, start), 1)
+        if g.chance(0.4):  # a new pattern of rests
+            spans = []
+            t = g.u(1.0, dur)
+            while t < dur - 2.0 and len(spans) < 3:
+                end = min(t + g.u(2.0, 40.0), dur)
+                spans.append([_r(t, 1), _r(end, 1)])
+                t = end + g.u(1.0, dur / 2.0)
+            g.doc["drive"]["pauses"] = [s for s in spans if s[1] > s[0]]
+        if g.chance(0.3):  # turned the wrong way, once or twice
+            ts = sorted({_r(g.u(1.0, max(1.5, dur - 1.0)), 1) for _ in range(1 + g.chance(0.5))})
+            g.doc["drive"]["reversals_s"] = ts
+    elif k == "wind":
+        g.put("drive.wind_mean_ms", g.u(2.0, 16.0), 2)
+        g.put("drive.turbulence_pct", g.u(5.0, 40.0), 1)
+        g.put("drive.air_density", g.u(0.9, 1.25))
+        if g.chance(0.6):
+            g.doc["drive"]["gusts"] = [
+                {"t_s": _r(g.u(0.0, dur), 1), "duration_s": _r(g.u(2.0, 15.0), 1),
+                 "peak_ms": _r(g.u(1.0, 10.0), 2)} for _ in range(int(g.rng.integers(0, 4)))]
+    elif k == "hydro":
+        g.scale("drive.flow_lps", 0.5, 1.5)
+        g.scale("drive.head_m", 0.8, 1.2)
+    elif k == "scripted":
+        f = g.u(0.8, 1.2)
+        g.doc["drive"]["points"] = [[t, _r(v * f)] for t, v in g.res["drive"]["points"]]
+
+
+def _usb(g):
+    g.put("usb.network.tol_pct", g.u(0.0, 5.0), 2)
+    g.put("usb.converter.setpoint_tol_pct", g.u(0.0, 3.0), 2)
+    if g.chance(0.15):  # an assembly fault on the data-line network
+        kind = g.pick(NET_FAULTS)
+        f = {"kind": kind}
+        if kind in ("open", "decade_up", "decade_down"):
+            f["resistor"] = g.pick(NET_RESISTORS)
+        elif kind == "short_to_ground":
+            f["line"] = g.pick(("dp", "dm"))
+        g.doc.setdefault("usb", {}).setdefault("network", {})["faults"] = [f]
+
+
+def _events(g, dur):
+    if dur < 3.0:
+        return
+    facts = g.base["facts"]
+    evs = []
+
+    def later(t, lo, hi):
+        return _r(min(dur - 0.5, t + g.u(lo, hi)), 2)
+
+    for _ in range(int(g.rng.integers(0, 4))):
+        t = _r(g.u(1.0, dur - 1.0), 2)
+        kind = g.pick(EVENT_CHOICES)
+        ev = {"t_s": t, "kind": kind}
+        undo = None
+        if kind == "battery_disconnected":
+            undo = {"kind": "battery_reconnected"}
+        elif kind == "temp_sensor_open":
+            undo = {"kind": "temp_sensor_ok"}
+        elif kind == "sensor_stuck":
+            ev["sensor"] = g.pick(tuple(STUCK_VALUES))
+            ev["value"] = g.pick(STUCK_VALUES[ev["sensor"]])
+            undo = {"kind": "sensor_ok", "sensor": ev["sensor"]}
+        elif kind == "sensor_open":
+            ev["sensor"] = g.pick(OPEN_SENSORS)
+            ev["reads"] = g.pick(("zero", "full"))
+            undo = {"kind": "sensor_ok", "sensor": ev["sensor"]}
+        elif kind == "wrong_divider_resistor":
+            # the classic wrong part: a decade off (5.1 k fitted where 51 k belongs)
+            r = g.pick(tuple(sorted(facts["dividers"])))
+            nom = facts["dividers"][r]
+            ev["resistor"] = r
+            ev["ohm"] = _r(nom * g.pick((10.0, 0.1)))
+            undo = {"kind": "wrong_divider_resistor", "resistor": r, "ohm": _r(nom)}
+        elif kind == "bus_surge":
+            # bounded: into the bus held at its limit, the source drives at most what the
+            # clamp and the dump resistor are rated to take (surge_max_a), and its open-circuit
+            # voltage is at most twice the bus limit
+            ohm = g.u(1.0, 10.0)
+            lim_v = facts["bus_limit_v"]
+            ev["surge_ohm"] = _r(ohm)
+            ev["surge_v"] = _r(lim_v + min(facts["surge_max_a"] * ohm, lim_v) * g.u(0.1, 1.0)
+                               * 0.999)
+            ev["duration_s"] = _r(g.u(0.02, SURGE_MAX_S))
+        elif kind == "drive_stop":
+            undo = {"kind": "drive_start"}
+        elif kind == "ambient":
+            ev["value"] = _r(g.u(-10.0, 50.0), 1)
+        evs.append(ev)
+        if undo is not None and g.chance(0.5):
+            undo["t_s"] = later(t, 0.5, 30.0)
+            evs.append(undo)
+    if evs:
+        base_evs = g.doc.get("events", [])
+        g.doc["events"] = sorted(base_evs + evs, key=lambda e: e["t_s"])
+
+
+# ---- shrinking --------------------------------------------------------------------------------
+
+class Shrinker:
+    """Greedy and deterministic. fails(doc) -> (still_fails, t_first_crossed_s or None) runs the
+    simulation; every step that still fails is kept (so the newest failing run always describes
+    the current document). At most max_runs runs."""
+
+    def __init__(self, fails, base, max_runs=40):
+        self.fails = fails
+        self.base = base
+        self.max_runs = max_runs
+        self.runs = 0
+        self.t_cross_s = None  # first crossing in the current document, s
+
+    def _try(self, doc):
+        if self.runs >= self.max_runs:
+            return False, None
+        self.runs += 1
+        ok, t = self.fails(doc)
+        if ok and t is not None:
+            self.t_cross_s = t
+        return ok, t
+
+    def shrink(self, doc, t_cross_s):
+        """The shrunk copy of doc, whose first crossing (t_cross_s, None for a run that raised)
+        is known from the run that found it."""
+        doc = copy.deepcopy(doc)
+        self.t_cross_s = t_cross_s
+        doc = self._duration(doc)
+        for _ in range(2):
+            changed = False
+            doc, c = self._events(doc)
+            changed |= c
+            doc, c = self._fields(doc)
+            changed |= c
+            doc = self._duration(doc)
+            if not changed or self.runs >= self.max_runs:
+                break
+        return doc
+
+    def _duration(self, doc):
+        t_cross_s = self.t_cross_s
+        if t_cross_s is None:
+            return doc
+        dur = doc["duration_s"]
+        for new in (math.ceil(t_cross_s + 1.0), math.ceil((t_cross_s + dur) / 2.0)):
+            new = float(new)
+            if new >= dur:
+                continue
+            cand = copy.deepcopy(doc)
+            cand["duration_s"] = new
+            cand["events"] = [e for e in cand.get("events", []) if e["t_s"] < new]
+            if not cand["events"]:
+                cand.pop("events", None)
+            if self._try(cand)[0]:
+                return cand
+        return doc
+
+    def _events(self, doc):
+        changed = False
+        evs = doc.get("events", [])
+        if evs:
+            cand = copy.deepcopy(doc)
+            cand.pop("events")
+            if self._try(cand)[0]:
+                return cand, True
+        j = len(doc.get("events", [])) - 1
+        while j >= 0:  # last first: later events are the likelier bystanders
+            cand = copy.deepcopy(doc)
+            del cand["events"][j]
+            if not cand["events"]:
+                cand.pop("events")
+            if self._try(cand)[0]:
+                doc = cand
+                changed = True
+            j -= 1
+        return doc, changed
+
+    def _fields(self, doc):
+        """Perturbed fields back to the base: all at once, then a section at a time, then one
+        field at a time; a number that cannot go all the way back is bisected toward the base
+        (three steps), keeping the closest value that still fails."""
+        changed = False
+        paths = [p for p in _diff_paths(doc, self.base["raw"]) if p[0] not in _KEEP]
+        if not paths:
+            return doc, False
+        groups = [paths]
+        sections = {}
+        for p in paths:
+            sections.setdefault(tuple(p[:2]) if p[0] in ("sensors", "converters", "usb")
+                                else (p[0],), []).append(p)
+        if len(sections) > 1:
+            groups += list(sections.values())
+        for grp in groups:
+            grp = [p for p in grp if get_path(doc, p, _MISSING) is not _MISSING]
+            if not grp:
+                continue
+            cand = copy.deepcopy(doc)
+            for p in grp:
+                self._revert(cand, p)
+            if cand != doc and self._try(cand)[0]:
+                doc = cand
+                changed = True
+        for parts in _diff_paths(doc, self.base["raw"]):
+            if parts[0] in _KEEP:
+                continue
+            cur = get_path(doc, parts)
+            cand = copy.deepcopy(doc)
+            self._revert(cand, parts)
+            if self._try(cand)[0]:
+                doc = cand
+                changed = True
+                continue
+            had, base_v = _lookup(self.base["raw"], parts)
+            target = base_v if had else get_path(self.base["resolved"], parts)
+            if not (_num(cur) and _num(target)):
+                continue
+            # bisect between the base (passes) and the current value (fails), three steps
+            lo = target
+            for _ in range(3):
+                mid = _r((cur + lo) / 2.0, 4)
+                if mid == cur or mid == lo:
+                    break
+                cand = copy.deepcopy(doc)
+                set_path(cand, parts, mid)
+                if self._try(cand)[0]:
+                    doc = cand
+                    cur = mid
+                    changed = True
+                else:
+                    lo = mid
+        return doc, changed
+
+    def _revert(self, doc, parts):
+        had, base_v = _lookup(self.base["raw"], parts)
+        if had:
+            set_path(doc, parts, copy.deepcopy(base_v))
+        elif _lookup(doc, parts)[0]:
+            _delete(doc, parts)
+
+
+_KEEP = ("events", "name", "description", "duration_s", "seed")  # not "perturbed fields"
+
+
+def changed_fields(doc, base):
+    """Dotted paths where a document differs from its base's file (events aside)."""
+    return [path_text(p) for p in _diff_paths(doc, base["raw"]) if p[0] not in _KEEP]
+
+
+def _num(x):
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+def _lookup(doc, parts):
+    x = doc
+    for p in parts:
+        if isinstance(x, dict) and p in x:
+            x = x[p]
+        else:
+            return False, None
+    return True, x
+
+
+def _delete(doc, parts):
+    """Remove a key from a raw document; sections left empty go too."""
+    x = doc
+    chain = []
+    for p in parts[:-1]:
+        chain.append((x, p))
+        x = x[p]
+    del x[parts[-1]]
+    for parent, p in reversed(chain):
+        if parent[p] == {}:
+            del parent[p]
+        else:
+            break
+
+
+def _diff_paths(doc, base, prefix=()):
+    """Dotted paths (as lists) where doc differs from base: dicts descend, lists and values
+    compare whole. In document order, so the shrinker's order is fixed."""
+    out = []
+    for k, v in doc.items():
+        b = base.get(k, _MISSING) if isinstance(base, dict) else _MISSING
+        if isinstance(v, dict) and isinstance(b, dict):
+            out.extend(_diff_paths(v, b, prefix + (k,)))
+        elif isinstance(v, dict) and b is _MISSING:
+            out.extend(_diff_paths(v, {}, prefix + (k,)))
+        elif b is _MISSING or v != b:
+            out.append(list(prefix + (k,)))
+    return out
+
+
+_MISSING = object()
