@@ -17,9 +17,9 @@ def build_parser():
                     "from batteries and supercaps, hot dump resistors, pinching gears; defaults are "
                     "starting points, follow makers' data, local codes and licensed practice.")
     sub = ap.add_subparsers(dest="cmd", metavar="COMMAND", required=True)
-    from host_sim import bench, cmd_board, fuzz, limits, simulate, sweep, usbdesign, vectors
+    from host_sim import bench, cmd_board, fuzz, hil, limits, simulate, sweep, usbdesign, vectors
     from host_sim.identify import cli as identify_cli
-    for mod in (simulate, vectors, limits, identify_cli, usbdesign, fuzz, sweep, cmd_board, bench):
+    for mod in (simulate, vectors, limits, identify_cli, usbdesign, fuzz, sweep, cmd_board, hil, bench):
         mod.register(sub)
     return ap
 

@@ -93,10 +93,12 @@ class Progress:
             print(file=sys.stderr)
 
 
-def run(sc, progress=True, every=1):
-    """Run scenario sc in closed loop. every: keep one row in `every` periods."""
+def run(sc, progress=True, every=1, controller=None):
+    """Run scenario sc in closed loop. every: keep one row in `every` periods. controller:
+    anything with .m, .c and .tick(now_ms) in place of the in-process Supervisor (the
+    hardware-in-the-loop link, host_sim/hil.py)."""
     p = sc.profile
-    sup = Supervisor(p)
+    sup = controller if controller is not None else Supervisor(p)
     plant = Plant(sc)
     period_ms = p.period_ms
     dt_s = period_ms / 1000.0
