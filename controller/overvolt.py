@@ -4,7 +4,13 @@
 # source (a jammed furl, a wrong gear, a dump resistor gone open): after lockout_trips trips
 # within trip_window the outputs stay off until reset_req (or a power cycle); the dump load
 # keeps answering every trip meanwhile.
-from controller.compat import ticks_diff
+from controller.compat import const, ticks_diff
+from controller.signals import DUTY_MAX
+
+# When the latch clears the dump load steps down over ten periods instead of at once: a
+# source that was held by the full dump would otherwise find an unloaded bus (the storage
+# converters restart from zero) and overshoot the trip within one period.
+_RELEASE_STEP = const(1000)
 
 
 class OverVoltGuard:
@@ -18,6 +24,7 @@ class OverVoltGuard:
         self.next = 0  # ring index for the next trip
         self.last_ms = 0  # now_ms of the newest trip in trip_at
         self.trips_total = 0  # trips since start (telemetry)
+        self.dump = 0  # dump duty the guard asks for: full while latched, then stepping down
 
     def update(self, bus_mv, dt_ms, now_ms, reset_req):
         p = self.p
@@ -42,6 +49,12 @@ class OverVoltGuard:
         if reset_req and self.locked and not self.tripped:
             self.locked = 0
             self.n_trips = 0
+        if self.tripped:
+            self.dump = DUTY_MAX
+        elif self.dump > _RELEASE_STEP:
+            self.dump -= _RELEASE_STEP
+        else:
+            self.dump = 0
 
     def _record(self, now_ms):
         p = self.p

@@ -20,7 +20,7 @@ from controller.leadacid import LeadAcidCharger
 from controller.mppt import HillClimb
 from controller.overvolt import OverVoltGuard
 from controller.signals import (
-    DUTY_MAX, F_BATT_SENSOR, F_BUS_SENSOR, F_CAP_SENSOR, F_OVP, F_OVP_LOCKOUT, F_USB_SENSOR,
+    F_BATT_SENSOR, F_BUS_SENSOR, F_CAP_SENSOR, F_OVP, F_OVP_LOCKOUT, F_USB_SENSOR,
     ST_BLOCKED, Commands, Measurements,
 )
 from controller.supercap import CapClamp
@@ -79,7 +79,7 @@ class Supervisor:
             fault |= F_OVP
         if self.ovp.locked:
             fault |= F_OVP_LOCKOUT
-        c.dump_duty = DUTY_MAX if self.ovp.tripped else 0
+        c.dump_duty = self.ovp.dump  # full while latched, stepping down after
 
         if fault:
             self.charger.block()
@@ -94,7 +94,9 @@ class Supervisor:
         floor = p.floor_mv
         if self.mppt is not None:
             floor = self.mppt.update(bus, m.src_ma, dt)
-            c.dump_duty = self.mppt.dump_duty(bus)
+            d = self.mppt.dump_duty(bus)
+            if d > c.dump_duty:
+                c.dump_duty = d
 
         # USB
         if (m.usb_vbus_mv < _NEG_MV or m.usb_vbus_mv > p.vbus_fs_mv or m.usb_dp_mv < _NEG_MV
