@@ -6,7 +6,6 @@
 import hashlib
 import json
 import statistics
-import sys
 
 from controller.signals import Commands, Measurements
 from host_sim import report, runner
