@@ -41,10 +41,10 @@ class BuckLoop:
             self.bus_last_mv = bus_mv
             return 0
         if self.u_mv == 0:
-            # start only on a bus that held still over the last period, at the zero-current
-            # point
+            # start at the zero-current point, and only on a bus that held still over the last
+            # period where there is one to compare (a surge lifting a bus that had no headroom)
             self.bus_last_mv = bus_mv
-            if last == 0 or bus_mv - last > _SETTLE_MV or last - bus_mv > _SETTLE_MV:
+            if last and (bus_mv - last > _SETTLE_MV or last - bus_mv > _SETTLE_MV):
                 return 0
             self.u_mv = out_mv
         step = (ceil_mv - out_mv) >> _KV_SHIFT
