@@ -14,7 +14,7 @@ _KB_DIV = const(32)  # u step = bus error / 32 (a loaded generator sags several 
 _STEP_UP_MV = const(60)  # slowest to rise: soft start, and a tiring rider is not stalled
 _STEP_DN_MV = const(2000)  # quick to fall
 _CUT_MV = const(500)  # an overcurrent drops u this far below the output
-_HEAD_MV = const(300)  # below output + this the bus gives the buck no headroom: off
+_HEAD_MV = const(300)  # top duty x bus below output + this: no headroom, converter off
 _SETTLE_MV = const(300)  # a stopped converter starts only on a bus that moved less than this
 _UNDER_MV = const(300)  # u never winds further below the output than this
 
@@ -34,9 +34,9 @@ class BuckLoop:
         """One regulation step; returns the new duty. u_cap_mv caps u (for a current-limited
         path without a current sensor); pass a large value for none."""
         last = self.bus_last_mv
-        if bus_mv < out_mv + _HEAD_MV:
-            # no headroom: a buck cannot deliver, and a duty parked high would turn a bus that
-            # comes back (a surge, a store unplugged from it) into a current spike
+        if (bus_mv * _DUTY_TOP) // DUTY_MAX < out_mv + _HEAD_MV:
+            # no headroom at the top duty: a buck cannot deliver, and a duty parked high would
+            # turn a bus that comes back (a surge, a store unplugged from it) into a spike
             self.stop()
             self.bus_last_mv = bus_mv
             return 0

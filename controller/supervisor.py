@@ -138,7 +138,9 @@ class Supervisor:
         """A buck cannot push current into a store that sits above its input: a bus reading
         below the battery (or bank) while that converter runs and current flows is wrong.
         Latched until the bus reads above both stores again (a stuck-low bus sensor would
-        otherwise let the converters restart every other tick)."""
+        otherwise let the converters restart every other tick), or until no current flows into
+        either store (then a low bus contradicts nothing: a source that stopped, read once with
+        a lagging current sample, must not keep the battery's loads off)."""
         m = self.m
         c = self.c
         p = self.p
@@ -149,7 +151,8 @@ class Supervisor:
             self.bus_lie = 1
         elif c.cap_duty and _XCHK_MA < m.cap_ma <= p.batt_fs_ma and b < m.cap_mv <= p.cap_fs_mv:
             self.bus_lie = 1
-        elif self.bus_lie and m.bus_mv > m.batt_mv + _XCHK_MV and m.bus_mv > m.cap_mv + _XCHK_MV:
+        elif self.bus_lie and ((m.bus_mv > m.batt_mv + _XCHK_MV and m.bus_mv > m.cap_mv + _XCHK_MV)
+                               or (m.batt_ma <= _XCHK_MA and m.cap_ma <= _XCHK_MA)):
             self.bus_lie = 0
         return self.bus_lie
 
