@@ -1,0 +1,114 @@
+"""buckloop: the regulator shared by the two buck converters."""
+from controller import buckloop
+from controller.buckloop import BuckLoop
+from controller.signals import DUTY_MAX
+
+BIG_MV = 100000
+STEP_UP_MV = buckloop._STEP_UP_MV  # the soft-start step per tick (module constant)
+
+
+def out_mv(duty, bus_mv):
+    """Open-circuit converter output for a duty (averaged buck: duty x input)."""
+    return duty * bus_mv // DUTY_MAX
+
+
+def quantum_mv(bus_mv):
+    """Output change that duty rounding alone can make: two duty steps at this bus, mV."""
+    return 2 * bus_mv // DUTY_MAX + 1
+
+
+def test_starts_at_the_zero_current_point_and_rises_softly():
+    b = BuckLoop()
+    d = b.update(12000, 14400, 0, 2000, 18000, 9000, BIG_MV)
+    assert abs(out_mv(d, 18000) - 12000 - STEP_UP_MV) <= 2
+    last = out_mv(d, 18000)
+    for _ in range(20):
+        now = out_mv(b.update(12000, 14400, 0, 2000, 18000, 9000, BIG_MV), 18000)
+        assert 0 < now - last <= STEP_UP_MV + quantum_mv(18000)
+        last = now
+
+
+def test_never_rises_at_or_above_the_ceiling():
+    b = BuckLoop()
+    for _ in range(30):
+        b.update(13000, 14400, 500, 2000, 18000, 9000, BIG_MV)
+    last = b.duty
+    for bus_mv in (18000, 17000, 15000, 22000, 14500):  # a falling bus must not raise it either
+        d = b.update(14400, 14400, 500, 2000, bus_mv, 9000, BIG_MV)
+        assert d <= last
+        last = d
+
+
+def test_current_limit_and_bus_floor_pull_down():
+    b = BuckLoop()
+    for _ in range(30):
+        b.update(13000, 14400, 500, 2000, 18000, 9000, BIG_MV)
+    u0 = b.u_mv
+    b.update(13000, 14400, 4000, 2000, 18000, 9000, BIG_MV)
+    assert b.u_mv < u0  # over the current limit
+    u1 = b.u_mv
+    b.update(13000, 14400, 500, 2000, 8000, 9000, BIG_MV)
+    assert b.u_mv < u1  # bus under its floor
+
+
+def test_never_winds_far_below_the_output_within_the_current_limit():
+    # a bus under its floor (14 V against a 15 V floor) pulls u down, but within the current
+    # limit never further than _UNDER_MV below the output, so the converter resumes near the
+    # zero-current point
+    b = BuckLoop()
+    b.update(13000, 14400, 500, 2000, 18000, 15000, BIG_MV)
+    for _ in range(200):
+        d = b.update(13000, 14400, 500, 2000, 14000, 15000, BIG_MV)
+    assert b.u_mv == 13000 - buckloop._UNDER_MV
+    assert out_mv(d, 14000) >= 13000 - buckloop._UNDER_MV - quantum_mv(14000)
+
+
+def test_duty_limits():
+    b = BuckLoop()
+    for _ in range(200):
+        d = b.update(13000, 30000, 0, 2000, 13500, 0, BIG_MV)
+        assert 0 <= d <= buckloop._DUTY_TOP  # a buck keeps its switch's off-time
+    assert b.update(13000, 14400, 0, 2000, 0, 9000, BIG_MV) == 0
+    assert b.update(13000, 14400, 0, 2000, -300, 9000, BIG_MV) == 0
+
+
+def test_u_cap_holds_the_output_near_the_load():
+    b = BuckLoop()
+    for _ in range(100):
+        d = b.update(0, 14000, 0, 2000, 20000, 9000, 500)
+        assert out_mv(d, 20000) <= 500
+
+
+def test_a_bus_jump_after_a_weak_stretch_does_not_jump_the_output():
+    """Regression (integrator wind-up): with the bus barely above the battery the duty sits at
+    its top and u kept climbing (to 74.5 V after 100 s). When the bus then jumped with a gust
+    the converter went straight to 95 % duty, 19 V open-circuit into a 12.5 V battery, and the
+    current error took over a second to pull it back. The module promises the opposite: 'a bus
+    that jumps with a gust ... does not jump the charge current'. After the jump the output
+    may drive current into the battery only as the soft start allows: k ticks after the jump
+    its open-circuit output is at most (k + 1) soft-start steps above the battery."""
+    b = BuckLoop()
+    for _ in range(2000):  # 100 s at 50 ms: bus 12.9 V, battery 12.5 V, no current flows
+        b.update(12500, 14520, 0, 2400, 12900, 9000, BIG_MV)
+    # 95 % of 12.9 V cannot reach the battery: no headroom, so the converter is off rather
+    # than parked at its top duty (buckloop._HEAD_MV)
+    assert b.duty == 0
+    for k in range(12):
+        d = b.update(12500, 14520, 0, 2400, 20000, 9000, BIG_MV)
+        assert out_mv(d, 20000) <= 12500 + (k + 1) * STEP_UP_MV + quantum_mv(20000)
+
+
+def test_a_bus_jump_after_saturating_with_headroom_does_not_jump_the_output():
+    """Regression (integrator wind-up, the case the headroom stop leaves): the bus has headroom
+    (95 % of 14 V is 13.3 V, over the 12.5 V battery) but the current reading stays at 0 (a
+    battery that will not take charge, a sensor stuck low), so the duty sits at its top for
+    100 s. When the bus jumps to 20 V the output may rise from what the converter was giving
+    before the jump only as the soft start allows, not to 95 % of the new bus."""
+    b = BuckLoop()
+    for _ in range(2000):
+        b.update(12500, 14520, 0, 2400, 14000, 9000, BIG_MV)
+    assert b.duty == buckloop._DUTY_TOP
+    before_mv = out_mv(b.duty, 14000)
+    for k in range(12):
+        d = b.update(12500, 14520, 0, 2400, 20000, 9000, BIG_MV)
+        assert out_mv(d, 20000) <= before_mv + (k + 1) * STEP_UP_MV + quantum_mv(20000)
