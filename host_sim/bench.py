@@ -67,20 +67,12 @@ def _callgrind(mode, n):
         if r.returncode:
             raise UserError("bench: callgrind run failed: " + r.stderr[-500:], exit_code=1)
         total = None
-        allocs = 0
-        cur_fn = ""
         with open(out) as f:
             for line in f:
                 if line.startswith("summary:") or line.startswith("totals:"):
                     total = int(line.split()[1])
-                elif line.startswith("cfn="):
-                    cur_fn = line
-                elif line.startswith("calls=") and "gc_alloc" in cur_fn:
-                    allocs += int(line.split("=")[1].split()[0])
-        # cfn= lines may name a function by id only after its first mention: resolve ids
-        if allocs == 0:
-            allocs = _count_calls(out, "gc_alloc")
-        return total, allocs
+        # callgrind names a function once, then refers to it by id: count by id
+        return total, _count_calls(out, "gc_alloc")
 
 
 def _count_calls(path, fname):
