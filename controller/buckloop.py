@@ -40,6 +40,12 @@ class BuckLoop:
             self.stop()
             self.bus_last_mv = bus_mv
             return 0
+        if out_ma - lim_ma > lim_ma >> 1:
+            # half again over the limit: not a loop error but a source or store that moved
+            # (a surge on the bus): off now, and start again only once the bus has settled
+            self.stop()
+            self.bus_last_mv = bus_mv
+            return 0
         if self.u_mv == 0:
             # start at the zero-current point, and only on a bus that held still over the last
             # period where there is one to compare (a surge lifting a bus that had no headroom)

@@ -13,6 +13,8 @@ from controller.signals import (
 
 TEMP_MIN_PLAUSIBLE_DC = const(-400)  # an open NTC reads colder than this
 TEMP_MAX_PLAUSIBLE_DC = const(850)  # a shorted NTC reads hotter than this
+_TEMP_HYST_DC = const(10)  # charging resumes 1.0 C inside the window (a noisy sensor at the
+# edge would otherwise switch the charger, and the load on the drive, on and off every tick)
 _REVERSED_MV = const(-200)  # a battery this far negative is connected backwards
 _BIG_MV = const(100000)
 
@@ -62,6 +64,7 @@ class LeadAcidCharger:
         self.eq_ms = 0  # time spent charging in equalize, ms
         self.eq_armed = 1  # 1 when an equalize request (rising edge) may start one
         self.lost = 0  # 1 after the battery was absent or reversed: restart at bulk
+        self.too_hot_cold = 0  # 1 after leaving the temperature window, until 1 C back inside
         self.out_on = 0  # discharge switch (loads, bus diode) closed
         self.lvd = 0  # 1 after a low-voltage disconnect, until the battery reaches lvr_mv
         self.loop = BuckLoop()
@@ -99,6 +102,12 @@ class LeadAcidCharger:
             self.fault = F_TEMP_SENSOR
         elif t < p.temp_min_dc or t > p.temp_max_dc:
             self.fault = F_TEMP_WINDOW
+            self.too_hot_cold = 1
+        elif self.too_hot_cold and (t < p.temp_min_dc + _TEMP_HYST_DC
+                                    or t > p.temp_max_dc - _TEMP_HYST_DC):
+            self.fault = F_TEMP_WINDOW  # back inside, but not yet by the hysteresis
+        else:
+            self.too_hot_cold = 0
         if v < _REVERSED_MV:
             self.fault |= F_BATT_REVERSED
             self.lost = 1

@@ -73,9 +73,11 @@ class UsbPort:
         self.match = M_NONE  # scheme the latest readings match
         self.ok_ms = 0  # how long VBUS and lines have matched, ms
         self.fault = 0  # this tick's fault bits (F_USB_LINES while the converter runs unmatched)
+        self.conv_ms = 0  # how long the converter has run, ms (capped at the debounce time)
 
     def block(self):
         self.conv = 0
+        self.conv_ms = 0
         self.on = 0
         self.probe = 0
         self.probe_was = 0
@@ -90,6 +92,10 @@ class UsbPort:
                 self.conv = 0
         elif b >= p.usb_bus_min_mv:
             self.conv = 1
+        if not self.conv:
+            self.conv_ms = 0
+        elif self.conv_ms < p.usb_debounce_ms:
+            self.conv_ms += dt_ms
         vbus = m.usb_vbus_mv
         self.match = classify(m.usb_dp_mv, m.usb_dm_mv, vbus, self.probe_was,
                               p.line_tol_pct, p.short_tol_mv)
@@ -103,6 +109,7 @@ class UsbPort:
         else:
             self.ok_ms = 0
             self.on = 0
-            self.fault = F_USB_LINES if self.conv else 0
+            # a fault once the converter has run for the debounce time: not while it starts
+            self.fault = F_USB_LINES if self.conv_ms >= p.usb_debounce_ms else 0
         self.probe = 1 if (self.want == M_DCP and self.conv and not self.on) else 0
         self.probe_was = self.probe

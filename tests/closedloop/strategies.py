@@ -39,7 +39,7 @@ def fault_events(draw, duration_s):
             # unloaded bus needs a stronger clamp than the scenarios' default, and the
             # simulation rightly shows it as a crossing (see fault_parade for a 40 V surge
             # into a loaded bus)
-            ev["surge_v"] = draw(st.sampled_from((25.0, 26.5, 28.0)))
+            ev["surge_v"] = draw(st.sampled_from((25.0, 26.5, 27.5)))
             ev["surge_ohm"] = draw(st.sampled_from((1.0, 4.7, 10.0)))
             ev["duration_s"] = draw(st.sampled_from((0.05, 0.3, 1.0)))
         elif kind == "wrong_divider_resistor":

@@ -241,7 +241,10 @@ class OvpOracle:
         self.below_ms = 0
         self.trips = []  # unwrapped times of trips since the last reset
 
-    def step(self, t, dt_ms):
+    def step(self, t, dt_ms, suspect=False):
+        """One tick. suspect: the bus voltage reading is in range but the controller's own
+        cross-checks rejected it (see bus_suspect); a suspect reading is no evidence that the
+        bus is below recovery, so the latch may hold through it."""
         L, m = self.L, t.m
         over = m.bus_mv > L.bus_fs or m.bus_mv >= L.trip_mv  # over range counts as a trip
         if over:
@@ -254,7 +257,7 @@ class OvpOracle:
                     self.locked = True
         elif self.latched:
             # only a reading the sensor can vouch for shows the bus below recovery
-            if NEG_MV <= m.bus_mv < L.recover_mv:
+            if NEG_MV <= m.bus_mv < L.recover_mv and not suspect:
                 self.below_ms += late_dt(dt_ms, L.period_ms)
                 if self.below_ms >= L.hold_ms:
                     self.latched = False
@@ -269,6 +272,14 @@ class OvpOracle:
 RELEASE_PERIODS = 10  # overvolt.py: after the latch clears the dump steps down over ten periods
 
 
+def bus_suspect(t, L):
+    """The controller flagged the bus sensor although every bus reading is in range: its own
+    cross-check (a converter delivering current from a bus below its store) doubts the bus
+    voltage. (A source current out of range flags the bus sensor too, but leaves the bus
+    voltage reading usable.)"""
+    return bool(t.c.fault & F_BUS_SENSOR) and L.bus_plausible(t.m)
+
+
 def check_i5(ticks, L):
     """I5: at or above the trip (or a bus reading above full scale) the dump load is fully on,
     USB off and both storage duties 0, in that tick; the latch holds until the bus has read
@@ -279,7 +290,7 @@ def check_i5(ticks, L):
     guard_dump = 0  # what the guard asks of the dump load
     for t in ticks:
         m, c = t.m, t.c
-        o.step(t, 0 if prev_abs is None else t.t_abs - prev_abs)
+        o.step(t, 0 if prev_abs is None else t.t_abs - prev_abs, bus_suspect(t, L))
         prev_abs = t.t_abs
         if o.latched:
             guard_dump = DUTY_MAX
@@ -312,7 +323,7 @@ def check_i6(ticks, L):
     prev_abs = None
     for t in ticks:
         m, c = t.m, t.c
-        o.step(t, 0 if prev_abs is None else t.t_abs - prev_abs)
+        o.step(t, 0 if prev_abs is None else t.t_abs - prev_abs, bus_suspect(t, L))
         prev_abs = t.t_abs
         if not L.bus_plausible(m):
             assert c.fault & F_BUS_SENSOR, _where(t, "implausible bus, no bus sensor bit")

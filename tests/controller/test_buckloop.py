@@ -39,16 +39,28 @@ def test_never_rises_at_or_above_the_ceiling():
         last = d
 
 
-def test_current_limit_and_bus_floor_pull_down():
+def running_loop():
     b = BuckLoop()
     for _ in range(30):
         b.update(13000, 14400, 500, 2000, 18000, 9000, BIG_MV)
+    assert b.duty > 0
+    return b
+
+
+def test_current_over_the_limit_pulls_down():
+    b = running_loop()
+    u0, d0 = b.u_mv, b.duty
+    d = b.update(13000, 14400, 2400, 2000, 18000, 9000, BIG_MV)  # 20 % over the limit
+    assert b.u_mv < u0 and d < d0
+
+
+def test_bus_under_the_floor_pulls_down():
+    b = running_loop()
     u0 = b.u_mv
-    b.update(13000, 14400, 4000, 2000, 18000, 9000, BIG_MV)
-    assert b.u_mv < u0  # over the current limit
-    u1 = b.u_mv
-    b.update(13000, 14400, 500, 2000, 8000, 9000, BIG_MV)
-    assert b.u_mv < u1  # bus under its floor
+    for _ in range(3):
+        b.update(13000, 14400, 500, 2000, 15000, 16000, BIG_MV)  # the generator sags
+        assert b.u_mv < u0
+        u0 = b.u_mv
 
 
 def test_never_winds_far_below_the_output_within_the_current_limit():

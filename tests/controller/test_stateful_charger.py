@@ -156,7 +156,8 @@ class ChargerMachine(RuleBasedStateMachine):
             self.sup.tick(self.t_abs & TICKS_MASK)
             c = self.sup.c
             ran_dt = late_dt(dt, self.p.period_ms)
-            self.ovp.step(OvpIn(self.t_abs, r), dt)
+            self.ovp.step(OvpIn(self.t_abs, r), dt,
+                          bool(c.fault & F_BUS_SENSOR) and NEG_MV <= r.bus_mv <= L.bus_fs)
             # the battery section runs unless the bus (its range, or the controller's own
             # cross-checks: the bus bit) or the guard took the tick, or the reading is bad
             bus_ok = NEG_MV <= r.bus_mv <= L.bus_fs and not c.fault & F_BUS_SENSOR
@@ -418,6 +419,33 @@ class ChargerMachine(RuleBasedStateMachine):
             for switch in (c.usb_on, c.usb_conv, c.batt_out):
                 assert switch in (0, 1), e
             assert c.stage in range(len(STAGE_NAMES)), e
+
+
+def check_all(state):
+    for name in sorted(dir(state)):
+        if name.startswith("inv_"):
+            getattr(state, name)()
+
+
+def test_regression_a_suspect_bus_reading_holds_the_latch():
+    """Found by the deep profile (pasted from its printout): the rider stops while the battery
+    current still reads 500 mA, so the controller suspects the 0 V bus reading; a surge trips
+    the guard; the bus then reads 0 V but is still suspect. The latch must hold through the
+    suspect readings (they are no evidence the bus is below recovery) and every invariant
+    holds, whatever follows."""
+    for last in (("late_tick", dict(periods=2)), ("current", dict(ma=0)),
+                 ("battery_lead", dict(how="removed"))):
+        state = ChargerMachine()
+        state.init(variant="agm", start_ms=0)
+        state.bus(mv=0)
+        check_all(state)
+        state.sensor_glitch(high=True, reading="bus_mv", ticks=1)
+        check_all(state)
+        state.batt_down(mv=10)
+        check_all(state)
+        getattr(state, last[0])(**last[1])
+        check_all(state)
+        state.teardown()
 
 
 # max_examples and the rest from the HYPOTHESIS_PROFILE chosen in conftest
