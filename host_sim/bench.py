@@ -78,21 +78,20 @@ def _callgrind(mode, n):
 def _count_calls(path, fname):
     ids = set()
     count = 0
-    pat = re.compile(r"^cfn=\((\d+)\)(?: (.*))?$")
+    # fn= and cfn= share one id space: a name is given once, on either, then the id alone
+    pat = re.compile(r"^(c?fn)=\((\d+)\)(?: (.*))?$")
     cur = None
     with open(path) as f:
         for line in f:
             m = pat.match(line.rstrip("\n"))
             if m:
-                fid, name = m.group(1), m.group(2)
-                if name and name.endswith(fname):
+                kind, fid, name = m.groups()
+                if name and (name == fname or name.endswith(":" + fname)):
                     ids.add(fid)
-                cur = fid
+                cur = fid if kind == "cfn" else None
             elif line.startswith("calls=") and cur in ids:
                 count += int(line.split("=")[1].split()[0])
                 cur = None
-            elif not line.startswith("calls="):
-                pass
     return count
 
 
