@@ -11,26 +11,6 @@ _MODE = 0o666 & ~_umask  # what a plain open() would have made
 
 
 @contextmanager
-def atomic_open(path, mode="w", **kw):
-    """Open a temporary file beside path; on success rename it to path, on error remove it."""
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
-    os.makedirs(folder, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix="." + os.path.basename(path) + ".", dir=folder)
-    os.chmod(tmp, _MODE)
-    try:
-        with os.fdopen(fd, mode, **kw) as f:
-            yield f
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-
-
-@contextmanager
 def atomic_path(path):
     """A temporary path beside path for another program to write; renamed to path on success,
     removed on error."""
@@ -49,6 +29,14 @@ def atomic_path(path):
         except OSError:
             pass
         raise
+
+
+@contextmanager
+def atomic_open(path, mode="w", **kw):
+    """Open a temporary file beside path; on success rename it to path, on error remove it."""
+    with atomic_path(path) as tmp:
+        with open(tmp, mode, **kw) as f:
+            yield f
 
 
 def write_json(path, obj):
