@@ -74,11 +74,21 @@ def write(result, path):
     a2.plot(t, s["batt_a"], color="#1f77b4", lw=0.7, label="battery A")
     a2.axhline(p.chg_limit_ma / 1000, color="#1f77b4", ls=":", lw=0.8, label="current limit")
     a2.set_ylabel("A")
+    # current in the lower half of the panel, voltage and ceiling in the upper: no overlap
+    top_a = max(float(np.nanmax(s["batt_a"])) if len(t) else 0.0, p.chg_limit_ma / 1000)
+    low_a = min(float(np.nanmin(s["batt_a"])) if len(t) else 0.0, 0.0)
+    a2.set_ylim(low_a - 0.2, low_a + (top_a - low_a) * 2.1 + 0.2)
+    v = s["batt_v"]
+    if len(t):
+        vmin = float(np.nanmin(v))
+        vmax = max(float(np.nanmax(v)), float(np.nanmax(s["ceiling_v"])) if np.isfinite(
+            s["ceiling_v"]).any() else 0.0)
+        a.set_ylim(vmin - (vmax - vmin) * 1.1 - 0.1, vmax + 0.15)
     handles = [plt.Rectangle((0, 0), 1, 1, color=_STAGE_FILL[n]) for n in STAGE_NAMES]
     leg = a.legend(handles, STAGE_NAMES, loc="lower right", fontsize=7, ncol=5, title="stage",
                    title_fontsize=7)
     a.add_artist(leg)
-    _legend(a, a2, loc="upper left")
+    _legend(a, a2, loc="center left")
     a.set_title("Battery: voltage, ceiling and current; stages shaded", loc="left", fontsize=10)
 
     a = ax[3]
