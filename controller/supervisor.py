@@ -73,7 +73,8 @@ class Supervisor:
                 bus = p.ovp_recover_mv  # bus unknown: no trip, and no time below recovery
         elif self._bus_contradicted():
             fault = F_BUS_SENSOR
-            bus = p.ovp_recover_mv
+            if bus < p.ovp_trip_mv:  # a suspect reading proves no low bus; a high one trips
+                bus = p.ovp_recover_mv
         self.ovp.update(bus, dt, now_ms, m.reset_req)
         if self.ovp.tripped:
             fault |= F_OVP

@@ -448,6 +448,21 @@ def test_regression_a_suspect_bus_reading_holds_the_latch():
         state.teardown()
 
 
+def test_regression_a_suspect_bus_at_the_trip_trips():
+    """Found by the deep profile (pasted): the bus is suspected after the rider stops, a battery
+    voltage glitch keeps the suspicion from clearing, then the bus reads the 24 V trip. The
+    guard must trip (dump load on) although the reading is suspect."""
+    state = ChargerMachine()
+    state.init(variant="agm", start_ms=0)
+    state.bus(mv=0)
+    check_all(state)
+    state.sensor_glitch(high=True, reading="batt_mv", ticks=2)
+    check_all(state)
+    state.bus(mv=24000)
+    check_all(state)
+    state.teardown()
+
+
 # max_examples and the rest from the HYPOTHESIS_PROFILE chosen in conftest
 TestChargerStages = ChargerMachine.TestCase
 TestChargerStages.settings = settings(stateful_step_count=40)

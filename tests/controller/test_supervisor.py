@@ -220,3 +220,18 @@ def test_a_lagging_current_sample_when_the_source_stops_does_not_keep_the_loads_
     assert c.batt_out == 1 and not c.fault & F_BUS_SENSOR
     c = b.run(200)
     assert c.batt_out == 1
+
+
+def test_a_suspect_bus_reading_at_the_trip_still_trips():
+    """Regression (found by the stateful machine under the deep profile): once the bus
+    cross-check suspected the bus sensor, every bus reading was replaced by the recovery level
+    until the latch cleared, so a bus that then read 24 V (the trip, inside the sensor's range)
+    did not trip the guard: no dump load, with the storage converters off, the source free to
+    push the bus higher. Here the latch cannot clear (a glitching battery reading and a lagging
+    current reading keep it set). A suspect reading is no proof that the bus is low; a reading
+    at or above the trip is still a trip."""
+    b = running()
+    b.run(1, bus_mv=0)  # the rider stops; the current reading lags: the bus is suspected
+    b.run(1, batt_mv=30000)  # a battery voltage glitch, the current still reading charge
+    c = b.run(1, bus_mv=24000)
+    assert c.fault & F_OVP and c.dump_duty == DUTY_MAX and all_off(c)
