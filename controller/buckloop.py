@@ -34,15 +34,12 @@ class BuckLoop:
         """One regulation step; returns the new duty. u_cap_mv caps u (for a current-limited
         path without a current sensor); pass a large value for none."""
         last = self.bus_last_mv
-        if (bus_mv * _DUTY_TOP) // DUTY_MAX < out_mv + _HEAD_MV:
-            # no headroom at the top duty: a buck cannot deliver, and a duty parked high would
-            # turn a bus that comes back (a surge, a store unplugged from it) into a spike
-            self.stop()
-            self.bus_last_mv = bus_mv
-            return 0
-        if out_ma - lim_ma > lim_ma >> 1:
-            # half again over the limit: not a loop error but a source or store that moved
-            # (a surge on the bus): off now, and start again only once the bus has settled
+        top_mv = (bus_mv * _DUTY_TOP) // DUTY_MAX  # the most this bus can make at top duty
+        if top_mv < out_mv + _HEAD_MV or out_ma - lim_ma > lim_ma >> 1:
+            # Off: with no headroom at the top duty a buck cannot deliver, and a duty parked
+            # high would turn a bus that comes back (a surge, a store unplugged from it) into a
+            # spike; half again over the limit is not a loop error but a source or store that
+            # moved. Start again only once the bus has settled.
             self.stop()
             self.bus_last_mv = bus_mv
             return 0
@@ -81,9 +78,7 @@ class BuckLoop:
         if u < 1:
             u = 1
         self.u_mv = u
-        if bus_mv <= 0:
-            self.duty = 0
-            return 0
+        # (bus_mv > 0 here: the headroom test above returned otherwise)
         # duty holds for the coming period: if the bus is rising, divide by where it is going
         # (one period's rise ahead), so a bus freed of a load does not surge the output
         ff = bus_mv
@@ -97,9 +92,7 @@ class BuckLoop:
             d = _DUTY_TOP
             # anti-windup: u no higher than this bus can make, so a bus that jumps later
             # restarts from the output instead of from a wound-up u
-            self.u_mv = (bus_mv * _DUTY_TOP) // DUTY_MAX
-        if d < 0:
-            d = 0
+            self.u_mv = top_mv
         if out_mv >= ceil_mv and d > self.duty:
             d = self.duty  # the feedforward must not raise it either (a falling bus)
         if cut and d > self.duty - (self.duty >> 2):
