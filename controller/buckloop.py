@@ -3,7 +3,7 @@
 # with input-voltage feedforward (duty = u / bus), so a bus that jumps with a gust or a
 # sprint does not jump the charge current. Each tick u moves by the most restrictive of three
 # errors: voltage under its ceiling, current under its limit, bus above its floor.
-from controller.compat import const
+from controller.compat import const, micropython
 from controller.signals import DUTY_MAX
 
 _DUTY_TOP = const(9500)  # a buck cannot run at 100 %: keep the switch's off-time
@@ -25,11 +25,13 @@ class BuckLoop:
         self.duty = 0  # last duty, 0..DUTY_MAX
         self.bus_last_mv = 0  # bus at the previous update, mV (feedforward of a rising bus)
 
+    @micropython.native
     def stop(self):
         self.u_mv = 0
         self.duty = 0
         self.bus_last_mv = 0
 
+    @micropython.native
     def update(self, out_mv, ceil_mv, out_ma, lim_ma, bus_mv, floor_mv, u_cap_mv):
         """One regulation step; returns the new duty. u_cap_mv caps u (for a current-limited
         path without a current sensor); pass a large value for none."""
@@ -39,17 +41,19 @@ class BuckLoop:
             # Off: with no headroom at the top duty a buck cannot deliver, and a duty parked
             # high would turn a bus that comes back (a surge, a store unplugged from it) into a
             # spike; half again over the limit is not a loop error but a source or store that
-            # moved. Start again only once the bus has settled.
-            self.stop()
+            # moved. Start again only once the bus has settled. (stop(), written out.)
+            self.u_mv = 0
+            self.duty = 0
             self.bus_last_mv = bus_mv
             return 0
-        if self.u_mv == 0:
+        u = self.u_mv
+        if u == 0:
             # start at the zero-current point, and only on a bus that held still over the last
             # period where there is one to compare (a surge lifting a bus that had no headroom)
             self.bus_last_mv = bus_mv
             if last and (bus_mv - last > _SETTLE_MV or last - bus_mv > _SETTLE_MV):
                 return 0
-            self.u_mv = out_mv
+            u = out_mv
         step = (ceil_mv - out_mv) >> _KV_SHIFT
         s = lim_ma - (lim_ma >> 5) - out_ma  # aim 3 % under the limit: room for noise
         s = s // _KI_DIV if s >= 0 else s // _KI_OVER_DIV
@@ -69,7 +73,7 @@ class BuckLoop:
             u = out_mv - _CUT_MV  # 3 % over the limit: below the zero-current point at once (a
             # store reconnected under a high u, a bus that jumped within the period); ramp again
         else:
-            u = self.u_mv + step
+            u += step
         if u > u_cap_mv:
             u = u_cap_mv
         if u < out_mv - _UNDER_MV and out_ma <= lim_ma:
@@ -77,7 +81,6 @@ class BuckLoop:
             # bus reading or a stiff source must not hold the current up)
         if u < 1:
             u = 1
-        self.u_mv = u
         # (bus_mv > 0 here: the headroom test above returned otherwise)
         # duty holds for the coming period: if the bus is rising, divide by where it is going
         # (one period's rise ahead), so a bus freed of a load does not surge the output
@@ -92,11 +95,13 @@ class BuckLoop:
             d = _DUTY_TOP
             # anti-windup: u no higher than this bus can make, so a bus that jumps later
             # restarts from the output instead of from a wound-up u
-            self.u_mv = top_mv
-        if out_mv >= ceil_mv and d > self.duty:
-            d = self.duty  # the feedforward must not raise it either (a falling bus)
-        if cut and d > self.duty - (self.duty >> 2):
-            d = self.duty - (self.duty >> 2)  # and a cut lowers the duty by a quarter at least,
+            u = top_mv
+        self.u_mv = u
+        last_d = self.duty
+        if out_mv >= ceil_mv and d > last_d:
+            d = last_d  # the feedforward must not raise it either (a falling bus)
+        if cut and d > last_d - (last_d >> 2):
+            d = last_d - (last_d >> 2)  # and a cut lowers the duty by a quarter at least,
             # whatever the bus reading says
         self.duty = d
         return d

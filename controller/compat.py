@@ -3,10 +3,16 @@
 import sys
 
 try:
+    import micropython  # the compiler reads @micropython.native itself; nothing runs at call
     from micropython import const
-except ImportError:  # CPython
+except ImportError:  # CPython: the code emitters are MicroPython's; here they change nothing
     def const(x):
         return x
+
+    class micropython:  # noqa: N801 (stands in for the module of that name)
+        @staticmethod
+        def native(f):
+            return f
 
 MICROPYTHON = sys.implementation.name == "micropython"
 
@@ -18,11 +24,13 @@ TICKS_MASK = const(0x3FFFFFFF)
 _TICKS_HALF = const(0x20000000)
 
 
+@micropython.native
 def ticks_add(t_ms, delta_ms):
     """now + delta on the wrapping clock (same rule as time.ticks_add)."""
     return (t_ms + delta_ms) & TICKS_MASK
 
 
+@micropython.native
 def ticks_diff(a_ms, b_ms):
     """Signed a - b on the wrapping clock, valid while |a - b| < 2**29 ms (about 6 days)."""
     return ((a_ms - b_ms + _TICKS_HALF) & TICKS_MASK) - _TICKS_HALF

@@ -5,7 +5,7 @@
 # conservative options) and raise F_TEMP_SENSOR. A lead-acid battery left uncharged for a
 # while is harmed far less than one overcharged hot with no compensation.
 from controller.buckloop import BuckLoop
-from controller.compat import const
+from controller.compat import const, micropython
 from controller.signals import (
     F_BATT_ABSENT, F_BATT_OVER, F_BATT_REVERSED, F_TEMP_SENSOR, F_TEMP_WINDOW,
     ST_ABSORPTION, ST_BULK, ST_EQUALIZE, ST_FLOAT,
@@ -19,6 +19,7 @@ _REVERSED_MV = const(-200)  # a battery this far negative is connected backwards
 _BIG_MV = const(100000)
 
 
+@micropython.native
 def comp_mv(p, cell_mv, temp_dc):
     """Block setpoint for a per-cell voltage at a battery temperature, compensated by the
     profile's coefficient; the temperature is clamped to the charging window first.
@@ -27,7 +28,8 @@ def comp_mv(p, cell_mv, temp_dc):
         temp_dc = p.temp_min_dc
     elif temp_dc > p.temp_max_dc:
         temp_dc = p.temp_max_dc
-    return p.cells * cell_mv + (p.cells * p.tc_uv_dc_cell * (temp_dc - p.ref_temp_dc)) // 1000
+    n = p.cells
+    return n * cell_mv + (n * p.tc_uv_dc_cell * (temp_dc - p.ref_temp_dc)) // 1000
 
 
 # Hard caps on the compensated setpoints, mV per cell: cold-battery compensation may not
@@ -37,17 +39,26 @@ _CAP_EQ_CELL_MV = const(2600)
 _CAP_FLOAT_CELL_MV = const(2350)
 
 
+@micropython.native
 def ceiling_mv(p, stage, temp_dc):
-    """The stage's compensated voltage ceiling for the block, mV, within the hard caps."""
+    """The stage's compensated voltage ceiling for the block, mV, within the hard caps.
+    (comp_mv written out here: the tick calls this once or twice, and a call costs more on a
+    board than the arithmetic.)"""
+    if temp_dc < p.temp_min_dc:
+        temp_dc = p.temp_min_dc
+    elif temp_dc > p.temp_max_dc:
+        temp_dc = p.temp_max_dc
+    n = p.cells
     if stage == ST_ABSORPTION or stage == ST_BULK:
-        v = comp_mv(p, p.abs_cell_mv, temp_dc)
-        top = p.cells * _CAP_ABS_CELL_MV
+        v = n * p.abs_cell_mv
+        top = n * _CAP_ABS_CELL_MV
     elif stage == ST_EQUALIZE:
-        v = comp_mv(p, p.eq_cell_mv, temp_dc)
-        top = p.cells * _CAP_EQ_CELL_MV
+        v = n * p.eq_cell_mv
+        top = n * _CAP_EQ_CELL_MV
     else:
-        v = comp_mv(p, p.float_cell_mv, temp_dc)
-        top = p.cells * _CAP_FLOAT_CELL_MV
+        v = n * p.float_cell_mv
+        top = n * _CAP_FLOAT_CELL_MV
+    v += (n * p.tc_uv_dc_cell * (temp_dc - p.ref_temp_dc)) // 1000
     return top if v > top else v
 
 
@@ -69,6 +80,7 @@ class LeadAcidCharger:
         self.lvd = 0  # 1 after a low-voltage disconnect, until the battery reaches lvr_mv
         self.loop = BuckLoop()
 
+    @micropython.native
     def _enter(self, stage):
         self.stage = stage
         self.abs_ms = 0
@@ -76,12 +88,14 @@ class LeadAcidCharger:
         self.rebulk_ms = 0
         self.eq_ms = 0
 
+    @micropython.native
     def block(self):
         """Charging forbidden by the supervisor (guard or sensor fault): duty 0, stage kept."""
         self.blocked = 1
         self.loop.stop()
         return 0
 
+    @micropython.native
     def discharge(self, batt_mv):
         """Low-voltage disconnect with hysteresis; returns the discharge switch state."""
         p = self.p
@@ -92,36 +106,48 @@ class LeadAcidCharger:
         self.out_on = 0 if (self.lvd or batt_mv < p.absent_mv) else 1
         return self.out_on
 
+    @micropython.native
     def update(self, m, dt_ms, floor_mv):
         """One tick. Returns the battery converter duty."""
         p = self.p
-        self.fault = 0
+        fault = 0
         t = m.batt_temp_dc
         v = m.batt_mv
         if t < TEMP_MIN_PLAUSIBLE_DC or t > TEMP_MAX_PLAUSIBLE_DC:
-            self.fault = F_TEMP_SENSOR
-        elif t < p.temp_min_dc or t > p.temp_max_dc:
-            self.fault = F_TEMP_WINDOW
-            self.too_hot_cold = 1
-        elif self.too_hot_cold and (t < p.temp_min_dc + _TEMP_HYST_DC
-                                    or t > p.temp_max_dc - _TEMP_HYST_DC):
-            self.fault = F_TEMP_WINDOW  # back inside, but not yet by the hysteresis
+            fault = F_TEMP_SENSOR
         else:
-            self.too_hot_cold = 0
+            lo = p.temp_min_dc
+            hi = p.temp_max_dc
+            if t < lo or t > hi:
+                fault = F_TEMP_WINDOW
+                self.too_hot_cold = 1
+            elif self.too_hot_cold:
+                if t < lo + _TEMP_HYST_DC or t > hi - _TEMP_HYST_DC:
+                    fault = F_TEMP_WINDOW  # back inside, but not yet by the hysteresis
+                else:
+                    self.too_hot_cold = 0
         if v < _REVERSED_MV:
-            self.fault |= F_BATT_REVERSED
+            fault |= F_BATT_REVERSED
             self.lost = 1
         elif v < p.absent_mv:
-            self.fault |= F_BATT_ABSENT
+            fault |= F_BATT_ABSENT
             self.lost = 1
-        if self.fault:
+        self.fault = fault
+        if fault:
             return self.block()
         if self.lost:
             self.lost = 0
             self._enter(ST_BULK)
         self.blocked = 0
-        self._advance(m, dt_ms)
-        ceil = ceiling_mv(p, self.stage, t)
+        st = self.stage
+        # bulk and absorption share a ceiling: work it out once for both _advance and the loop
+        ceil = 0
+        if st == ST_BULK or st == ST_ABSORPTION:
+            ceil = ceiling_mv(p, ST_ABSORPTION, t)
+        if self._advance(m, dt_ms, ceil):
+            ceil = ceiling_mv(p, self.stage, t)  # a new stage, maybe a new ceiling
+        elif not ceil:
+            ceil = ceiling_mv(p, st, t)
         self.ceil_mv = ceil
         if v > ceil + p.over_margin_mv:
             self.fault = F_BATT_OVER
@@ -129,46 +155,54 @@ class LeadAcidCharger:
             return 0
         return self.loop.update(v, ceil, m.batt_ma, p.chg_limit_ma, m.bus_mv, floor_mv, _BIG_MV)
 
-    def _advance(self, m, dt_ms):
+    @micropython.native
+    def _advance(self, m, dt_ms, abs_ceil_mv):
+        """Stage transitions for this tick; returns 1 if the stage changed. abs_ceil_mv is the
+        absorption ceiling at this temperature (computed only in bulk and absorption)."""
         p = self.p
         st = self.stage
         v = m.batt_mv
-        i = m.batt_ma
-        t = m.batt_temp_dc
-        charging = self.loop.duty > 0 and i > 0
-        band = p.over_margin_mv >> 1  # "at voltage": within 50 mV per 12 V block
-        if not m.eq_req:
+        eq_req = m.eq_req
+        if not eq_req:
             self.eq_armed = 1
-        want_eq = m.eq_req and self.eq_armed and p.eq_cell_mv > 0
         if st == ST_BULK:
-            if v >= ceiling_mv(p, ST_ABSORPTION, t) - band:
+            if v >= abs_ceil_mv - (p.over_margin_mv >> 1):  # "at voltage": within 50 mV/block
                 self._enter(ST_ABSORPTION)
+                return 1
         elif st == ST_ABSORPTION:
-            if charging:
+            i = m.batt_ma
+            if self.loop.duty > 0 and i > 0:  # charging
                 self.abs_ms += dt_ms
-            if v >= ceiling_mv(p, ST_ABSORPTION, t) - band and i <= p.tail_ma:
+            if v >= abs_ceil_mv - (p.over_margin_mv >> 1) and i <= p.tail_ma:
                 self.tail_ms += dt_ms
             else:
                 self.tail_ms = 0
-            if want_eq:
+            if eq_req and self.eq_armed and p.eq_cell_mv > 0:
                 self._start_eq()
-            elif self.tail_ms >= p.tail_hold_ms or self.abs_ms >= p.abs_max_ms:
+                return 1
+            if self.tail_ms >= p.tail_hold_ms or self.abs_ms >= p.abs_max_ms:
                 self._enter(ST_FLOAT)
+                return 1
         elif st == ST_FLOAT:
             if v < p.cells * p.rebulk_cell_mv:
                 self.rebulk_ms += dt_ms
             else:
                 self.rebulk_ms = 0
-            if want_eq:
+            if eq_req and self.eq_armed and p.eq_cell_mv > 0:
                 self._start_eq()
-            elif self.rebulk_ms >= p.rebulk_hold_ms:
+                return 1
+            if self.rebulk_ms >= p.rebulk_hold_ms:
                 self._enter(ST_BULK)
+                return 1
         elif st == ST_EQUALIZE:
-            if charging:
+            if self.loop.duty > 0 and m.batt_ma > 0:  # charging
                 self.eq_ms += dt_ms
-            if not m.eq_req or self.eq_ms >= p.eq_ms:
+            if not eq_req or self.eq_ms >= p.eq_ms:
                 self._enter(ST_FLOAT)
+                return 1
+        return 0
 
+    @micropython.native
     def _start_eq(self):
         self._enter(ST_EQUALIZE)
         self.eq_armed = 0  # one request, one equalize: release and press again for another

@@ -5,10 +5,14 @@
 # if it rose, keep stepping the same way, else turn round.
 # Above overspeed_mv the dump load ramps in (storage full or a gust the storage cannot take);
 # the overvoltage guard stays the hard backstop.
-from controller.compat import const
+from controller.compat import const, micropython
 from controller.signals import DUTY_MAX
 
 _DUMP_RAMP_MV = const(1000)  # dump duty goes 0 -> full over this much bus above overspeed
+# Power is summed in 10 mW units from 10 mV x 10 mA readings: at the sensors' largest full
+# scales (100 V, 100 A) one tick adds at most 10**6, and an interval ends after at most
+# _MAX_TICKS ticks, so the sum stays inside +-2**30 (a small int on a 32-bit board).
+_MAX_TICKS = const(1000)
 
 
 class HillClimb:
@@ -16,25 +20,29 @@ class HillClimb:
         self.p = p
         self.set_mv = p.floor_mv + 2 * p.mppt_step_mv  # bus setpoint, mV
         self.dir = 1  # +1 raise the setpoint, -1 lower it
-        self.acc_mw = 0  # input power summed over this interval, mW x ticks
+        self.acc_cw = 0  # input power summed over this interval, 10 mW x ticks
         self.n = 0  # ticks summed
-        self.last_mw = 0  # mean input power of the previous interval, mW
+        self.last_cw = 0  # mean input power of the previous interval, 10 mW
         self.elapsed_ms = 0  # time in this interval, ms
         hi = p.overspeed_mv if p.overspeed_mv else p.ovp_recover_mv
         self.top_mv = hi - p.mppt_step_mv  # the setpoint stays below overspeed
 
+    @micropython.native
     def update(self, bus_mv, in_ma, dt_ms):
         """Returns the bus setpoint (mV) for the converters' floor."""
         p = self.p
-        self.acc_mw += (bus_mv * in_ma) // 1000
-        self.n += 1
-        self.elapsed_ms += dt_ms
-        if self.elapsed_ms >= p.mppt_interval_ms:
-            mean = self.acc_mw // self.n
-            if mean < self.last_mw:
+        acc = self.acc_cw + ((bus_mv // 10) * (in_ma // 10)) // 100
+        n = self.n + 1
+        elapsed = self.elapsed_ms + dt_ms
+        self.acc_cw = acc
+        self.n = n
+        self.elapsed_ms = elapsed
+        if elapsed >= p.mppt_interval_ms or n >= _MAX_TICKS:
+            mean = acc // n
+            if mean < self.last_cw:
                 self.dir = -self.dir
-            self.last_mw = mean
-            self.acc_mw = 0
+            self.last_cw = mean
+            self.acc_cw = 0
             self.n = 0
             self.elapsed_ms = 0
             s = self.set_mv + self.dir * p.mppt_step_mv
@@ -47,6 +55,7 @@ class HillClimb:
             self.set_mv = s
         return self.set_mv
 
+    @micropython.native
     def dump_duty(self, bus_mv):
         """Overspeed dump duty for this bus voltage (0 when overspeed is not set)."""
         o = self.p.overspeed_mv

@@ -4,7 +4,7 @@
 # source (a jammed furl, a wrong gear, a dump resistor gone open): after lockout_trips trips
 # within trip_window the outputs stay off until reset_req (or a power cycle); the dump load
 # keeps answering every trip meanwhile.
-from controller.compat import const, ticks_diff
+from controller.compat import const, micropython, ticks_diff
 from controller.signals import DUTY_MAX
 
 # When the latch clears the dump load steps down over ten periods instead of at once: a
@@ -26,6 +26,7 @@ class OverVoltGuard:
         self.trips_total = 0  # trips since start (telemetry)
         self.dump = 0  # dump duty the guard asks for: full while latched, then stepping down
 
+    @micropython.native
     def update(self, bus_mv, dt_ms, now_ms, reset_req):
         p = self.p
         if self.n_trips and ticks_diff(now_ms, self.last_ms) >= p.trip_window_ms:
@@ -56,6 +57,7 @@ class OverVoltGuard:
         else:
             self.dump = 0
 
+    @micropython.native
     def _record(self, now_ms):
         p = self.p
         self.trip_at[self.next] = now_ms

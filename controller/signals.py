@@ -1,6 +1,6 @@
 # Measurements in, Commands out: the two objects that cross the controller's boundary every
 # tick. Both are made once and mutated in place (no allocation in the tick).
-from controller.compat import const
+from controller.compat import const, micropython
 
 DUTY_MAX = const(10000)  # converter and dump duties are in 0.01 % steps: 0 off .. 10000 full
 
@@ -56,6 +56,7 @@ class Measurements:
         self.eq_req = 0  # 1 while the user asks for an equalize charge (flooded only)
         self.reset_req = 0  # 1 to clear an overvoltage lockout
 
+    @micropython.native
     def copy_from(self, other):
         self.bus_mv = other.bus_mv
         self.src_ma = other.src_ma
@@ -90,6 +91,7 @@ class Commands:
         self.usb_match = 0  # which signalling scheme the data lines match (usbport.SCHEME_*)
         self.fault = 0  # fault bits (F_*)
 
+    @micropython.native
     def set_safe(self):
         """Storage converters, USB and the battery discharge switch off. The dump load is left
         to the overvoltage guard."""

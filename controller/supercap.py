@@ -8,6 +8,7 @@
 # With cell taps, a cell above the cell mean by the threshold gets its bleeder, and any cell
 # at or above its rating stops charging (F_CAP_CELL).
 from controller.buckloop import BuckLoop
+from controller.compat import micropython
 from controller.signals import F_CAP_CELL
 
 
@@ -19,29 +20,36 @@ class CapClamp:
         self.bal_mask = 0  # bleeders on, bit i for cell i
         self.loop = BuckLoop()
 
+    @micropython.native
     def block(self):
         self.loop.stop()
         self.bal_mask = 0
         return 0
 
+    @micropython.native
     def update(self, m, floor_mv):
         """One tick. Returns the supercap converter duty."""
         p = self.p
-        self.fault = 0
         v = m.cap_mv
-        cell_hot = self._balance(m)
-        if v >= p.cap_clamp_mv:
-            self.full = 1
-        elif v < p.cap_clamp_mv - p.cap_hyst_mv:
-            self.full = 0
-        if cell_hot:
-            self.fault = F_CAP_CELL
-        if self.full or cell_hot:
+        cell_hot = self._balance(m) if m.n_taps else 0
+        if not m.n_taps:
+            self.bal_mask = 0
+        clamp = p.cap_clamp_mv
+        hyst = p.cap_hyst_mv
+        full = self.full
+        if v >= clamp:
+            full = 1
+        elif v < clamp - hyst:
+            full = 0
+        self.full = full
+        self.fault = F_CAP_CELL if cell_hot else 0
+        if full or cell_hot:
             self.loop.stop()
             return 0
-        return self.loop.update(v, p.cap_clamp_mv - (p.cap_hyst_mv >> 1), m.cap_ma, p.cap_limit_ma,
-                                m.bus_mv, floor_mv, v + p.cap_headroom_mv)
+        return self.loop.update(v, clamp - (hyst >> 1), m.cap_ma, p.cap_limit_ma, m.bus_mv,
+                                floor_mv, v + p.cap_headroom_mv)
 
+    @micropython.native
     def _balance(self, m):
         """Set the bleeders; return 1 if any cell is at or above its rating."""
         p = self.p
@@ -49,17 +57,19 @@ class CapClamp:
         if not p.cap_taps or n == 0:
             self.bal_mask = 0
             return 0
+        cells = m.cell_mv
+        rating = p.cap_cell_rating_mv
         total = 0
         hot = 0
         for i in range(n):
-            c = m.cell_mv[i]
+            c = cells[i]
             total += c
-            if c >= p.cap_cell_rating_mv:
+            if c >= rating:
                 hot = 1
-        mean = total // n
+        top = total // n + p.cap_bal_mv
         mask = 0
         for i in range(n):
-            if m.cell_mv[i] > mean + p.cap_bal_mv:
+            if cells[i] > top:
                 mask |= 1 << i
         self.bal_mask = mask
         return hot

@@ -15,7 +15,7 @@
 #  5. Supercap: backs off at a floor _CAP_FLOOR_MV higher, so it yields first as the drive
 #     slows and takes what the battery leaves.
 #  With MPPT the floor is the hill-climbing setpoint instead of the profile's fixed floor.
-from controller.compat import TICKS_MASK, const, ticks_diff
+from controller.compat import TICKS_MASK, const, micropython
 from controller.leadacid import LeadAcidCharger
 from controller.mppt import HillClimb
 from controller.overvolt import OverVoltGuard
@@ -28,6 +28,7 @@ from controller.usbport import UsbPort
 
 _NEG_MV = const(-500)  # a voltage reading may sit this far below zero (offset, noise)
 _CAP_FLOOR_MV = const(500)  # the supercap backs off this far above the battery's floor
+_TICKS_HALF = const(0x20000000)  # compat._TICKS_HALF
 _DT_MAX_PERIODS = const(4)  # a late tick counts as at most this many periods
 _XCHK_MV = const(300)  # a buck delivering current from a bus this far below its output ...
 _XCHK_MA = const(200)  # ... at more than this is physically impossible: the bus reading lies
@@ -49,23 +50,30 @@ class Supervisor:
         self.bus_lie = 0  # 1 after the bus reading contradicted a running converter, until
         # it reads above the battery and the bank again (a stuck-low bus sensor)
 
+    @micropython.native
     def tick(self, now_ms):
         """Run one control period on self.m; results in self.c. Integer-only, allocates
         nothing, raises nothing."""
         p = self.p
         m = self.m
         c = self.c
-        dt = ticks_diff(now_ms, self.last_ms) if self.ticks else 0
-        if dt < 0:
-            dt = 0
-        elif dt > self.dt_max_ms:
-            dt = self.dt_max_ms
+        ticks = self.ticks
+        dt = 0
+        if ticks:
+            # compat.ticks_diff written out: on a board the call costs more than the sum
+            dt = ((now_ms - self.last_ms + _TICKS_HALF) & TICKS_MASK) - _TICKS_HALF
+            if dt < 0:
+                dt = 0
+            elif dt > self.dt_max_ms:
+                dt = self.dt_max_ms
         self.last_ms = now_ms
-        self.ticks = self.ticks + 1 if self.ticks < TICKS_MASK else 1  # stays a small int
+        self.ticks = ticks + 1 if ticks < TICKS_MASK else 1  # stays a small int
 
         fault = 0
         bus = m.bus_mv
-        if bus < _NEG_MV or bus > p.bus_fs_mv or m.src_ma < -p.batt_fs_ma or m.src_ma > p.batt_fs_ma:
+        fs_ma = p.batt_fs_ma  # one full scale for every current sensor
+        src = m.src_ma
+        if bus < _NEG_MV or bus > p.bus_fs_mv or src < -fs_ma or src > fs_ma:
             fault = F_BUS_SENSOR
             if bus > p.bus_fs_mv:
                 bus = p.ovp_trip_mv  # an over-range bus is treated as a trip
@@ -75,14 +83,16 @@ class Supervisor:
             fault = F_BUS_SENSOR
             if bus < p.ovp_trip_mv:  # a suspect reading proves no low bus; a high one trips
                 bus = p.ovp_recover_mv
-        self.ovp.update(bus, dt, now_ms, m.reset_req)
-        if self.ovp.tripped:
+        ovp = self.ovp
+        ovp.update(bus, dt, now_ms, m.reset_req)
+        if ovp.tripped:
             fault |= F_OVP
-        if self.ovp.locked:
+        if ovp.locked:
             fault |= F_OVP_LOCKOUT
-        c.dump_duty = self.ovp.dump  # full while latched, stepping down after
+        dump = ovp.dump  # full while latched, stepping down after
 
         if fault:
+            c.dump_duty = dump
             self.charger.block()
             self.clamp.block()
             self.usb.block()
@@ -93,48 +103,62 @@ class Supervisor:
             return
 
         floor = p.floor_mv
-        if self.mppt is not None:
-            floor = self.mppt.update(bus, m.src_ma, dt)
-            d = self.mppt.dump_duty(bus)
-            if d > c.dump_duty:
-                c.dump_duty = d
+        mppt = self.mppt
+        if mppt is not None:
+            floor = mppt.update(bus, src, dt)
+            d = mppt.dump_duty(bus)
+            if d > dump:
+                dump = d
+        c.dump_duty = dump
 
         # USB
-        if (m.usb_vbus_mv < _NEG_MV or m.usb_vbus_mv > p.vbus_fs_mv or m.usb_dp_mv < _NEG_MV
-                or m.usb_dp_mv > p.line_fs_mv or m.usb_dm_mv < _NEG_MV or m.usb_dm_mv > p.line_fs_mv):
+        usb = self.usb
+        v = m.usb_vbus_mv
+        fs = p.line_fs_mv
+        dp = m.usb_dp_mv
+        dm = m.usb_dm_mv
+        if (v < _NEG_MV or v > p.vbus_fs_mv or dp < _NEG_MV or dp > fs or dm < _NEG_MV
+                or dm > fs):
             fault |= F_USB_SENSOR
-            self.usb.block()
+            usb.block()
         else:
-            self.usb.update(m, dt)
-            fault |= self.usb.fault
-        c.usb_conv = self.usb.conv
-        c.usb_on = self.usb.on
-        c.usb_probe = self.usb.probe
-        c.usb_match = self.usb.match
+            usb.update(m, dt)
+            fault |= usb.fault
+        c.usb_conv = usb.conv
+        c.usb_on = usb.on
+        c.usb_probe = usb.probe
+        c.usb_match = usb.match
 
         # battery
-        if (m.batt_mv < -p.batt_fs_mv or m.batt_mv > p.batt_fs_mv or m.batt_ma < -p.batt_fs_ma
-                or m.batt_ma > p.batt_fs_ma):
+        charger = self.charger
+        v = m.batt_mv
+        fs = p.batt_fs_mv
+        i = m.batt_ma
+        if v < -fs or v > fs or i < -fs_ma or i > fs_ma:
             fault |= F_BATT_SENSOR
-            c.batt_duty = self.charger.block()
+            c.batt_duty = charger.block()
             c.batt_out = 0
         else:
-            c.batt_out = self.charger.discharge(m.batt_mv)
-            c.batt_duty = self.charger.update(m, dt, floor)
-            fault |= self.charger.fault
-        c.stage = ST_BLOCKED if self.charger.blocked else self.charger.stage
+            c.batt_out = charger.discharge(v)
+            c.batt_duty = charger.update(m, dt, floor)
+            fault |= charger.fault
+        c.stage = ST_BLOCKED if charger.blocked else charger.stage
 
         # supercap
-        if (m.cap_mv < _NEG_MV or m.cap_mv > p.cap_fs_mv or m.cap_ma < -p.batt_fs_ma
-                or m.cap_ma > p.batt_fs_ma or self._taps_implausible()):
+        clamp = self.clamp
+        v = m.cap_mv
+        i = m.cap_ma
+        if (v < _NEG_MV or v > p.cap_fs_mv or i < -fs_ma or i > fs_ma
+                or (m.n_taps and self._taps_implausible())):
             fault |= F_CAP_SENSOR
-            c.cap_duty = self.clamp.block()
+            c.cap_duty = clamp.block()
         else:
-            c.cap_duty = self.clamp.update(m, floor + _CAP_FLOOR_MV)
-            fault |= self.clamp.fault
-        c.bal_mask = self.clamp.bal_mask
+            c.cap_duty = clamp.update(m, floor + _CAP_FLOOR_MV)
+            fault |= clamp.fault
+        c.bal_mask = clamp.bal_mask
         c.fault = fault
 
+    @micropython.native
     def _bus_contradicted(self):
         """A buck cannot push current into a store that sits above its input: a bus reading
         below the battery (or bank) while that converter runs and current flows is wrong.
@@ -157,6 +181,7 @@ class Supervisor:
             self.bus_lie = 0
         return self.bus_lie
 
+    @micropython.native
     def _taps_implausible(self):
         m = self.m
         top = 2 * self.p.cap_cell_rating_mv

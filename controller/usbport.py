@@ -10,7 +10,7 @@
 #  - div_*: resistor dividers from VBUS giving D+/D- levels of 2.0 V or 2.7 V at VBUS 5.00 V
 #    (common practice). The windows scale with the measured VBUS (the dividers track it).
 #  - short_1v2: D+ tied to D-, biased to about 1.2 V at VBUS 5.00 V (common practice).
-from controller.compat import const
+from controller.compat import const, micropython
 from controller.signals import F_USB_LINES
 
 M_NONE = const(0)  # usb_match: the readings match no scheme
@@ -32,12 +32,14 @@ _DAT_REF_MAX_MV = const(400)  # BC1.2 1.4.4 V_DAT_REF
 _LGC_MIN_MV = const(800)  # BC1.2 1.4.4 V_LGC
 
 
+@micropython.native
 def _near(x_mv, nom_mv, vbus_mv, tol_pct):
     level = (nom_mv * vbus_mv) // _VNOM_MV
     w = (level * tol_pct) // 100
     return level - w <= x_mv <= level + w
 
 
+@micropython.native
 def classify(dp_mv, dm_mv, vbus_mv, probe, tol_pct, short_mv):
     """Which scheme the data lines match (M_*). probe: 1 if the D+ probe was sourced."""
     d = dp_mv - dm_mv
@@ -75,6 +77,7 @@ class UsbPort:
         self.fault = 0  # this tick's fault bits (F_USB_LINES while the converter runs unmatched)
         self.conv_ms = 0  # how long the converter has run, ms (capped at the debounce time)
 
+    @micropython.native
     def block(self):
         self.conv = 0
         self.conv_ms = 0
@@ -84,32 +87,44 @@ class UsbPort:
         self.ok_ms = 0
         self.match = M_NONE
 
+    @micropython.native
     def update(self, m, dt_ms):
         p = self.p
         b = m.bus_mv
-        if self.conv:
+        conv = self.conv
+        if conv:
             if b < p.usb_bus_min_mv - p.usb_bus_hyst_mv:
-                self.conv = 0
+                conv = 0
         elif b >= p.usb_bus_min_mv:
-            self.conv = 1
-        if not self.conv:
-            self.conv_ms = 0
-        elif self.conv_ms < p.usb_debounce_ms:
-            self.conv_ms += dt_ms
+            conv = 1
+        self.conv = conv
+        deb = p.usb_debounce_ms
+        conv_ms = 0
+        if conv:
+            conv_ms = self.conv_ms
+            if conv_ms < deb:
+                conv_ms += dt_ms
+        self.conv_ms = conv_ms
         vbus = m.usb_vbus_mv
-        self.match = classify(m.usb_dp_mv, m.usb_dm_mv, vbus, self.probe_was,
-                              p.line_tol_pct, p.short_tol_mv)
-        ok = self.conv and p.vbus_min_mv <= vbus <= p.vbus_max_mv and self.match == self.want
-        if ok:
-            if self.ok_ms < p.usb_debounce_ms:
-                self.ok_ms += dt_ms  # stops counting once on: stays a small int
-            if self.ok_ms >= p.usb_debounce_ms:
-                self.on = 1
+        match = classify(m.usb_dp_mv, m.usb_dm_mv, vbus, self.probe_was, p.line_tol_pct,
+                         p.short_tol_mv)
+        self.match = match
+        want = self.want
+        on = self.on
+        if conv and p.vbus_min_mv <= vbus <= p.vbus_max_mv and match == want:
+            ok_ms = self.ok_ms
+            if ok_ms < deb:
+                ok_ms += dt_ms  # stops counting once on: stays a small int
+                self.ok_ms = ok_ms
+            if ok_ms >= deb:
+                on = 1
             self.fault = 0
         else:
             self.ok_ms = 0
-            self.on = 0
+            on = 0
             # a fault once the converter has run for the debounce time: not while it starts
-            self.fault = F_USB_LINES if self.conv_ms >= p.usb_debounce_ms else 0
-        self.probe = 1 if (self.want == M_DCP and self.conv and not self.on) else 0
-        self.probe_was = self.probe
+            self.fault = F_USB_LINES if conv_ms >= deb else 0
+        self.on = on
+        probe = 1 if (want == M_DCP and conv and not on) else 0
+        self.probe = probe
+        self.probe_was = probe

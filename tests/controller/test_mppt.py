@@ -6,8 +6,8 @@ from controller.signals import DUTY_MAX
 
 
 def hill(**kw):
-    p = build(doc_with(control__mppt=True, control__mppt_step_v=0.5,
-                       control__mppt_interval_ms=100, **kw))
+    kw.setdefault("control__mppt_interval_ms", 100)
+    p = build(doc_with(control__mppt=True, control__mppt_step_v=0.5, **kw))
     return p, HillClimb(p)
 
 
@@ -55,3 +55,36 @@ def test_overspeed_dump_ramp():
     assert h.dump_duty(23000) == DUTY_MAX
     _, h = hill()
     assert h.dump_duty(23999) == 0  # no overspeed level: the guard alone
+
+
+SMALL_INT = 2 ** 30  # GUIDE section 2: every intermediate stays a small int on a 32-bit port
+
+
+def test_power_sum_stays_a_small_int_at_the_largest_legal_scales():
+    """Invariant: at the largest full scales the profile allows (bus 100 V, current 100 A) and
+    the longest interval in the shortest period (10 s at 5 ms: 2,000 ticks), the interval's
+    power sum and every product stay inside +-2**30. Before the fix, bus_mv x in_ma alone
+    reached 10**10."""
+    p, h = hill(sensors__bus_full_scale_v=100, sensors__batt_current_full_scale_a=100,
+                control__period_ms=5, control__mppt_interval_ms=10000,
+                bus__ovp_trip_v=60, bus__ovp_recover_v=55)
+    worst = 0
+    for k in range(5000):
+        h.update(p.bus_fs_mv, p.batt_fs_ma if k % 2 else -p.batt_fs_ma // 2, 5)
+        worst = max(worst, abs(h.acc_cw), abs(h.last_cw))
+        assert (p.bus_fs_mv // 10) * (p.batt_fs_ma // 10) < SMALL_INT
+    assert worst < SMALL_INT
+    assert h.n < 1000  # the interval was cut at 1,000 ticks, short of the 2,000 it asked
+
+
+def test_sum_cut_at_max_ticks_still_compares_means():
+    """An interval cut short by the tick cap compares means, not sums: equal power in a long
+    and a short interval does not read as a fall."""
+    _, h = hill(control__period_ms=5, control__mppt_interval_ms=10000)
+    first = h.set_mv
+    for _ in range(1000):
+        h.update(12000, 1000, 5)
+    assert h.set_mv == first + h.p.mppt_step_mv  # first interval: power rose from nothing
+    for _ in range(1000):
+        h.update(12000, 1000, 5)
+    assert h.set_mv == first + 2 * h.p.mppt_step_mv  # the same mean: not a fall, keep going
