@@ -1,6 +1,6 @@
 # The plant side of `spinrail bench`: simulation speed, the same circuit against ngspice, and
-# scenarios per second over both cores. Medians of repeated runs, printed, never asserted.
-import os
+# scenarios per second over both cores (vectorised batches, and scalar runs on a process pool
+# for comparison, on the same scenarios). Medians of repeated runs, printed, never asserted.
 import statistics
 import time
 
@@ -31,15 +31,39 @@ def vs_ngspice(repeats=3, seconds=5.0, ramp_s=0.8):
     return statistics.median(ratios), statistics.median(errs)
 
 
-def batch_scenarios_per_s(examples=24, workers=None):
-    """Fuzz-style scenarios (30 s simulated each) per wall second on a local process pool over
-    all cores. The plant is not vectorised across scenarios yet: this is the pool's figure."""
-    from host_sim import fuzz
-    workers = workers or os.cpu_count() or 1
-    bases = fuzz.load_bases(["demo", "crank_relief"])
+BENCH_BASES = ("demo", "crank_relief")
+BENCH_SEED = 3
+BENCH_MAX_S = 30.0
+
+
+def bench_docs(examples):
+    """The fuzz generator's examples 0..examples-1 (seed 3, up to 30 s simulated each) over the
+    demo and crank_relief bases: the scenarios both batch figures run."""
+    from host_sim import scenario_gen
+    bases = [scenario_gen.load_base(n) for n in BENCH_BASES]
+    return [scenario_gen.generate(bases, BENCH_SEED, i, BENCH_MAX_S)[0] for i in range(examples)]
+
+
+def batch_scenarios_per_s(examples=96, workers=2):
+    """Scenarios per wall second with the plant vectorised across scenarios
+    (batch_runner.run_batch: one batch per worker process, limits judged). Returns (rate,
+    workers, simulated seconds per scenario on average)."""
+    from host_sim import batch_runner
+    docs = bench_docs(examples)
     t0 = time.perf_counter()
-    camp = fuzz.campaign(bases, seed=3, examples=examples, workers=workers,
-                         max_duration_s=30.0, shrink_runs=0, progress=False)
+    res = batch_runner.run_batch(docs, workers=workers)
+    wall = time.perf_counter() - t0
+    return len(res) / wall, workers, statistics.mean(r.scenario.duration_s for r in res)
+
+
+def pool_scenarios_per_s(examples=96, workers=2):
+    """The same scenarios as batch_scenarios_per_s, one scalar closed-loop run each, on a
+    local process pool (the fuzz campaign's machinery, no shrinking): the figure to compare."""
+    from host_sim import fuzz
+    bases = fuzz.load_bases(list(BENCH_BASES))
+    t0 = time.perf_counter()
+    camp = fuzz.campaign(bases, seed=BENCH_SEED, examples=examples, workers=workers,
+                         max_duration_s=BENCH_MAX_S, shrink_runs=0, progress=False)
     wall = time.perf_counter() - t0
     return len(camp.records) / wall, workers
 
@@ -57,8 +81,14 @@ def collect(quick=False, log=print):
         res["vs_ngspice"] = None
         res["vs_ngspice_error_pct"] = None
         log("bench: ngspice comparison unavailable: %s" % e)
-    log("bench: batch scenarios on a process pool ...")
-    rate, workers = batch_scenarios_per_s(8 if quick else 24)
+    examples = 16 if quick else 96
+    log("bench: %d scenarios vectorised across scenarios, one batch per core ..." % examples)
+    rate, workers, mean_s = batch_scenarios_per_s(examples)
     res["batch_scenarios_per_s"] = round(rate, 2)
     res["batch_workers"] = workers
+    res["batch_examples"] = examples
+    res["batch_mean_duration_s"] = round(mean_s, 1)
+    log("bench: the same scenarios, scalar runs on a process pool ...")
+    rate, _ = pool_scenarios_per_s(examples, workers)
+    res["pool_scenarios_per_s"] = round(rate, 2)
     return res

@@ -138,8 +138,9 @@ def _energy(a, led):
         ("lost", [("winding", "loss_winding_j"), ("friction", "loss_friction_j"),
                   ("gear", "loss_gear_j"), ("diodes", "loss_diodes_j"),
                   ("clamp", "loss_clamp_j"), ("converters", "loss_conv_j"),
-                  ("dump", "loss_dump_j"), ("battery", "loss_batt_j"),
-                  ("supercap", "loss_cap_j")]),
+                  ("dump", "loss_dump_j"), ("bleed", "loss_bleed_j"),
+                  ("battery", "loss_batt_j"), ("supercap", "loss_cap_j"),
+                  ("bus step", "loss_bus_step_j")]),
     ]
     labels, vals, colors = [], [], []
     palette = {"stored": "#2ca02c", "delivered": "#1f77b4", "lost": "#d62728"}

@@ -3,11 +3,13 @@
 # The error that remains is the integrator's, so it must shrink as the sub-step shrinks: a
 # flow missing from the books would not.
 import copy
+from pathlib import Path
 
 import pytest
 
 from controller.signals import Commands
 from controller.supervisor import Supervisor
+from host_sim import runner
 from host_sim.plant.plant import LEDGER_KEYS, Plant
 from host_sim.scenario import builtin_names, load_doc, load_scenario
 
@@ -104,3 +106,70 @@ def test_builtin_closed_loop_balances(name):
     _check_books(led)
     assert led["drive_in_j"] > 1000
     assert abs(led["balance_error_pct"]) < 0.5, led
+
+
+# ---- issue 3: short, low-energy closed-loop runs -------------------------------------------
+# A 20 s run of the hut's micro-wind mast in 2 m/s wind puts in only 20-35 J, so the 0.15 J the
+# bus capacitor's backward Euler step used to leave unbooked at the first period (the bus jumps
+# from 0 V onto the supercap bank's discharge diode) was 0.44-0.85 % of the books. The step's
+# 1/2 C dV^2 is now booked as loss_bus_step_j.
+HUT = load_scenario("hut_wind")
+
+
+def _short_hut(seed, v0_per_cell, events):
+    doc = copy.deepcopy(HUT.doc)
+    doc["profile"] = HUT.profile_doc
+    doc["duration_s"] = 20
+    doc["seed"] = seed
+    doc["drive"]["wind_mean_ms"] = 2.0
+    doc["supercap"]["v0_per_cell"] = v0_per_cell
+    doc["events"] = events
+    return load_doc(doc, HUT.source)
+
+
+# before the fix: 0.739 % (seed 1, battery disconnected at 1 s) and 0.526 % (built-in seed,
+# bank at 2.2 V/cell, no fault)
+@pytest.mark.parametrize("seed,v0_per_cell,events", [
+    (1, 2.0, [{"t_s": 1.0, "kind": "battery_disconnected"}]),
+    (HUT.seed, 2.2, []),
+])
+def test_short_low_energy_closed_loop_balances(seed, v0_per_cell, events):
+    res = runner.run(_short_hut(seed, v0_per_cell, events), progress=False)
+    led = res.ledger
+    _check_books(led)
+    assert led["in_j"] < 60.0  # it is the low-energy case this test is about
+    assert led["loss_bus_step_j"] > 0.1  # the jump onto the bank's diode happened
+    assert abs(led["balance_error_pct"]) < 0.5, led
+    assert res.limits["ledger"].held
+
+
+def test_bus_jump_is_booked_within_one_period():
+    # One period in which the bus jumps from 0 V to the bank (about 12 V) while the rotor
+    # hardly turns: the books close to the solver's tolerance, not to 1/2 C dV^2 (0.15 J).
+    # Physics (RC charging from a stiff source, exact): charging C through a resistance by dV
+    # dissipates 1/2 C dV^2 in it whatever the resistance; here one sub-step does almost all
+    # of the jump, so the booked step loss is within 5 % below 1/2 C V^2 (the sub-steps'
+    # squares sum to less than the square of their sum).
+    plant = Plant(_short_hut(1, 2.0, []))
+    sup = Supervisor(plant.p)
+    plant.measure(sup.m)
+    sup.tick(0)
+    plant.step(sup.c, plant.p.period_ms / 1000.0)
+    led = plant.ledger()
+    jump_j = 0.5 * plant.c_bus * plant.v * plant.v
+    assert plant.v > 10.0 and jump_j > 0.1
+    assert 0.95 * jump_j <= led["loss_bus_step_j"] <= jump_j
+    assert abs(led["balance_error_j"]) < 1e-5 * jump_j, led
+
+
+def test_light_geared_rotor_keeps_the_ledger():
+    """Regression (found by the closed-loop property under the dev profile): a slow crank into
+    an empty bank, 20 ms period, one 20 ms sub-step. The crank's rotor (J = 0.3 g m^2 at the
+    machine) on the machine's electrical load has h K^2 / (R_a J) = 3.3 > 2, so the rotor step
+    fell back to its damped first-order form, and a slight hunting at a steady 82 rad/s built
+    about 27 mJ per period: -0.52 % after 58 s. Sub-steps are now held under 2 J R_a / K^2."""
+    sc = load_scenario(str(Path(__file__).parent / "regressions" / "crank_rotor_hunting.json"))
+    res = runner.run(sc, progress=False)
+    err = res.ledger["balance_error_pct"]
+    assert abs(err) < 0.1, "ledger error %.3f %% (issue 3 asks for 0.5 %%; this case " \
+        "gave 0.52 %% before the fix, 0.04 %% after)" % err
