@@ -33,15 +33,11 @@ _LGC_MIN_MV = const(800)  # BC1.2 1.4.4 V_LGC
 
 
 @micropython.native
-def _near(x_mv, nom_mv, vbus_mv, tol_pct):
-    level = (nom_mv * vbus_mv) // _VNOM_MV
-    w = (level * tol_pct) // 100
-    return level - w <= x_mv <= level + w
-
-
-@micropython.native
 def classify(dp_mv, dm_mv, vbus_mv, probe, tol_pct, short_mv):
-    """Which scheme the data lines match (M_*). probe: 1 if the D+ probe was sourced."""
+    """Which scheme the data lines match (M_*). probe: 1 if the D+ probe was sourced.
+    A divider level L matches within L x tol_pct / 100 around L x VBUS / 5.00 V (the dividers
+    track VBUS); the windows are written out rather than called, a call costing more on a
+    board than the arithmetic."""
     d = dp_mv - dm_mv
     shorted = -short_mv <= d <= short_mv
     if probe:
@@ -49,17 +45,23 @@ def classify(dp_mv, dm_mv, vbus_mv, probe, tol_pct, short_mv):
             return M_DCP
         return M_NONE
     if shorted:
-        if _near(dp_mv, _L12, vbus_mv, tol_pct) and _near(dm_mv, _L12, vbus_mv, tol_pct):
+        lv = (_L12 * vbus_mv) // _VNOM_MV
+        w = (lv * tol_pct) // 100
+        if lv - w <= dp_mv <= lv + w and lv - w <= dm_mv <= lv + w:
             return M_SHORT_1V2
         if dp_mv < _LGC_MIN_MV and dm_mv < _LGC_MIN_MV:
             return M_DCP
-    if _near(dp_mv, _L20, vbus_mv, tol_pct):
-        if _near(dm_mv, _L27, vbus_mv, tol_pct):
+    l20 = (_L20 * vbus_mv) // _VNOM_MV
+    w20 = (l20 * tol_pct) // 100
+    l27 = (_L27 * vbus_mv) // _VNOM_MV
+    w27 = (l27 * tol_pct) // 100
+    if l20 - w20 <= dp_mv <= l20 + w20:
+        if l27 - w27 <= dm_mv <= l27 + w27:
             return M_DIV_2V0_2V7
-    elif _near(dp_mv, _L27, vbus_mv, tol_pct):
-        if _near(dm_mv, _L20, vbus_mv, tol_pct):
+    elif l27 - w27 <= dp_mv <= l27 + w27:
+        if l20 - w20 <= dm_mv <= l20 + w20:
             return M_DIV_2V7_2V0
-        if _near(dm_mv, _L27, vbus_mv, tol_pct):
+        if l27 - w27 <= dm_mv <= l27 + w27:
             return M_DIV_2V7_2V7
     return M_NONE
 
