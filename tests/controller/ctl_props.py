@@ -270,6 +270,8 @@ class OvpOracle:
 
 
 RELEASE_PERIODS = 10  # overvolt.py: after the latch clears the dump steps down over ten periods
+OVERSPEED_RAMP_MV = 1000  # docs/profile.md: the overspeed dump goes 0 -> full over 1 V ...
+OVERSPEED_RELEASE = DUTY_MAX // 20  # ... and falls by at most 5 % of full per period
 
 
 def bus_suspect(t, L):
@@ -284,14 +286,21 @@ def check_i5(ticks, L):
     """I5: at or above the trip (or a bus reading above full scale) the dump load is fully on,
     USB off and both storage duties 0, in that tick; the latch holds until the bus has read
     below recovery for the hold time, then the dump load steps down to off over ten periods;
-    lockout_trips trips within the window keep every output off until reset."""
+    lockout_trips trips within the window keep every output off until reset.
+    With MPPT and an overspeed level the dump load also follows the bus above it (full over
+    1 V) at once, and lets go by at most 5 % of full per period (docs/profile.md, control)."""
     o = OvpOracle(L)
     prev_abs = None
     guard_dump = 0  # what the guard asks of the dump load
+    ovs_dump = 0  # what overspeed asks of it (advanced on the ticks that reach the tracker)
     for t in ticks:
         m, c = t.m, t.c
         o.step(t, 0 if prev_abs is None else t.t_abs - prev_abs, bus_suspect(t, L))
         prev_abs = t.t_abs
+        if L.overspeed_mv is not None and not c.fault & (F_BUS_SENSOR | F_OVP | F_OVP_LOCKOUT):
+            over = m.bus_mv - L.overspeed_mv
+            prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // OVERSPEED_RAMP_MV)
+            ovs_dump = max(prop, ovs_dump - OVERSPEED_RELEASE)
         if o.latched:
             guard_dump = DUTY_MAX
             assert c.dump_duty == DUTY_MAX, _where(t, "latched, dump load not fully on")
@@ -300,11 +309,10 @@ def check_i5(ticks, L):
         else:
             guard_dump = max(0, guard_dump - DUTY_MAX // RELEASE_PERIODS)
             assert not c.fault & F_OVP, _where(t, "ovp bit set with the latch clear")
-            if L.overspeed_mv is None or m.bus_mv <= L.overspeed_mv:
-                assert c.dump_duty == guard_dump, _where(
-                    t, "dump %d, the guard's release ramp is at %d" % (c.dump_duty, guard_dump))
-            else:  # MPPT overspeed may add its own ramp on top
-                assert c.dump_duty >= guard_dump, _where(t, "dump under the release ramp")
+            want = max(guard_dump, ovs_dump)
+            assert c.dump_duty == want, _where(
+                t, "dump %d, the guard's release ramp is at %d, overspeed asks %d"
+                % (c.dump_duty, guard_dump, ovs_dump))
         if o.locked:
             assert c.fault & F_OVP_LOCKOUT, _where(t, "locked out, lockout bit clear")
             assert storage_and_usb_off(c) and c.batt_out == 0, _where(t, "locked out, outputs on")

@@ -88,3 +88,18 @@ def test_sum_cut_at_max_ticks_still_compares_means():
     for _ in range(1000):
         h.update(12000, 1000, 5)
     assert h.set_mv == first + 2 * h.p.mppt_step_mv  # the same mean: not a fall, keep going
+
+
+def test_overspeed_dump_lets_go_slowly():
+    """Regression (fuzz, hut at 8 m/s): the dump followed the bus alone, so full dump pulled the
+    bus under overspeed, the dump let go in one period and the unloaded rotor lifted the bus
+    past the trip plus margin (30.7 V against 28) within the next. It now falls by at most
+    5 % of full per period."""
+    _, h = hill(control__overspeed_bus_v=20)
+    assert h.dump_duty(21000) == DUTY_MAX
+    assert h.dump_duty(15000) == DUTY_MAX - DUTY_MAX // 20
+    assert h.dump_duty(20100) == DUTY_MAX - 2 * (DUTY_MAX // 20)  # the held value is higher
+    for _ in range(17):
+        h.dump_duty(15000)
+    assert h.dump_duty(15000) == 0  # full to off in 20 periods
+    assert h.dump_duty(20500) == DUTY_MAX // 2  # and up again at once
