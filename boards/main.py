@@ -1,223 +1,58 @@
-# Firmware entry (runs on the board; the boot stub calls run(slot)). Builds the hardware layer
-# from the slot's hw.json, loads the profile, and runs the Supervisor at the profile's period
-# on the wrapping millisecond clock.
-#
-# Modes (fixed at flash time, from the board file or `spinrail flash --mode`):
-#  standalone  sensors through the HAL; telemetry frames out; HELLO answered.
-#  link        measurements arrive in MEAS frames; a CMD frame goes back after each tick.
-#              Realtime MEAS: the board ticks on its own period with the latest values.
-#              Lock-step MEAS (F_STEP): the board ticks at once with now_ms = the frame's t_ms
-#              (the host's simulated clock), so a host can run faster than real time.
-#              No MEAS for link_timeout_ms: outputs safe, F_LINK, until frames resume.
-# Any exception in a loop pass: outputs safe (dump on only if the bus reads at or above the
-# trip), F_FIRMWARE latched (until reset_req) and recorded in fault.log, and the loop goes on,
-# so the supervisor's guards keep running. KeyboardInterrupt (Ctrl-C from mpremote) leaves the
-# loop with storage and USB off and the dump load on: nothing watches the bus any more.
-import time
+# Firmware entry (runs on the board; the boot stub calls run(slot)). Two phases, so the heap
+# never holds the validation code and the control loop at once:
+#  1. load (boards/load.py): hw.json, manifest.json and profile.json from the slot folder; the
+#     profile is validated, then the validation modules and load.py itself are dropped and the
+#     parsed documents freed;
+#  2. run: only now the control loop is imported (boards/firmware.py: link, supervisor, the
+#     hardware layer), built and run at the profile's period on the wrapping millisecond clock.
+# Nothing heavy is imported at module level: the stub imports this module before phase 1.
+from controller.compat import const
 
-from controller import link as L
-from controller.compat import TICKS_MASK, const, ticks_add, ticks_diff
-from controller.signals import DUTY_MAX, F_FIRMWARE, F_LINK, ST_BLOCKED
-from controller.supervisor import Supervisor
-
-_RX_CHUNK = const(128)  # bytes taken from the stream per pass at most (a MEAS frame is ~80)
-_RESYNC_PERIODS = const(4)  # further behind than this: restart the schedule from now
-_WAIT_MAX_MS = const(5)  # longest sleep between passes (input wakes us earlier)
+_GC_STEP_B = const(1024)  # bytes allocated between collections while building
 
 
-class Firmware:
-    def __init__(self, p, hal, stream, mode, ident, timeout_ms, telemetry_ms, log_path=None):
-        self.p = p
-        self.hal = hal
-        self.stream = stream
-        self.sup = Supervisor(p)
-        self.link_mode = mode == L.MODE_LINK  # else standalone
-        self.link = L.BoardLink(timeout_ms, ident, self.sup.m if self.link_mode else None)
-        self.rxbuf = bytearray(_RX_CHUNK)
-        self.period_ms = p.period_ms
-        self.telemetry_ms = telemetry_ms  # 0: no telemetry frames
-        self.next_ms = 0  # board clock of the next scheduled tick
-        self.next_telem_ms = 0  # board clock of the next telemetry frame
-        self.started = 0  # 1 after the first pass (schedules start from it)
-        self.lockstep = 0  # 1 while the host sends lock-step MEAS frames
-        self.fw_fault = 0  # 1 after an exception, until reset_req
-        self.exceptions = 0  # exceptions caught in loop passes
-        self.late = 0  # scheduled ticks that ran more than one period late
-        self.log_path = log_path  # where the first exception's traceback goes
-        self.now_ms = 0  # board clock of the current pass
-
-    # -- one pass -----------------------------------------------------------------------------
-    def step(self, now_ms):
-        """One pass of the main loop on the board clock now_ms (masked to 30 bits)."""
-        self.now_ms = now_ms
-        try:
-            self._pass(now_ms)
-        except Exception as e:  # not KeyboardInterrupt: Ctrl-C must still stop the loop
-            self._on_exception(e)
-        self.hal.feed()
-
-    def _pass(self, now_ms):
-        if not self.started:
-            self.started = 1
-            self.next_ms = now_ms
-            self.next_telem_ms = now_ms
-        link = self.link
-        n = self.stream.read_into(self.rxbuf)
-        for i in range(n):
-            ev = link.push(self.rxbuf[i], now_ms)
-            if ev == L.EV_HELLO:
-                self._send(link.hello_frame())
-            elif ev == L.EV_STEP:
-                self.lockstep = 1
-                self._tick(link.step_ms)
-                self._send(link.cmd_frame(self.sup.c, self.sup.ticks, link.step_ms))
-            elif ev == L.EV_MEAS:
-                self.lockstep = 0
-        if ticks_diff(now_ms, self.next_ms) >= 0:
-            self._schedule(now_ms)
-            if not self.link_mode:
-                self.hal.read(self.sup.m)
-                self._tick(now_ms)
-            elif link.check(now_ms):
-                self._hold_safe()
-                self._send(link.cmd_frame(self.sup.c, self.sup.ticks, now_ms))
-            elif not self.lockstep:
-                self._tick(now_ms)
-                self._send(link.cmd_frame(self.sup.c, self.sup.ticks, now_ms))
-        elif self.link_mode and link.check(now_ms):
-            self._hold_safe()
-        if self.telemetry_ms and ticks_diff(now_ms, self.next_telem_ms) >= 0:
-            self.next_telem_ms = ticks_add(self.next_telem_ms, self.telemetry_ms)
-            if ticks_diff(now_ms, self.next_telem_ms) >= 0:
-                self.next_telem_ms = ticks_add(now_ms, self.telemetry_ms)
-            self._send(link.telem_frame(self.sup.m, self.sup.c, self.sup.ticks, now_ms,
-                                        self.exceptions, self.late))
-
-    def _schedule(self, now_ms):
-        late_ms = ticks_diff(now_ms, self.next_ms)
-        if late_ms >= self.period_ms:
-            self.late += 1
-        if late_ms >= _RESYNC_PERIODS * self.period_ms:
-            self.next_ms = ticks_add(now_ms, self.period_ms)
-        else:
-            self.next_ms = ticks_add(self.next_ms, self.period_ms)
-
-    def _tick(self, now_ms):
-        sup = self.sup
-        sup.tick(now_ms)
-        c = sup.c
-        if self.fw_fault:
-            if sup.m.reset_req:
-                self.fw_fault = 0
-            else:
-                c.set_safe()
-                c.stage = ST_BLOCKED
-                c.fault |= F_FIRMWARE
-        self.hal.apply(c)
-
-    def _hold_safe(self):
-        """Link lost: storage, USB and the battery switch off; the dump load keeps the last
-        tick's decision (the bus is not known any more)."""
-        c = self.sup.c
-        if c.fault & F_LINK:
-            return
-        c.set_safe()
-        c.stage = ST_BLOCKED
-        c.fault |= F_LINK
-        if self.fw_fault:
-            c.fault |= F_FIRMWARE
-        self.hal.apply(c)
-
-    def _send(self, n):
-        self.stream.write(self.link.tx.out, n)
-
-    def _on_exception(self, e):
-        self.exceptions += 1
-        if not self.fw_fault:
-            self.fw_fault = 1
-            self._record(e)
-        sup = self.sup
-        c = sup.c
-        m = sup.m
-        try:
-            if not self.link_mode:
-                self.hal.read_bus(m)
-        except Exception:
-            pass  # keep the last bus reading
-        dump = m.bus_mv >= self.p.ovp_trip_mv
-        c.set_safe()
-        c.stage = ST_BLOCKED
-        c.dump_duty = DUTY_MAX if dump else 0
-        c.fault |= F_FIRMWARE
-        try:
-            self.hal.apply(c)
-        except Exception:
-            try:
-                self.hal.safe(dump)
-            except Exception:
-                pass
-        self.next_ms = ticks_add(self.now_ms, self.period_ms)
-
-    def _record(self, e):
-        if not self.log_path:
-            return
-        try:
-            import sys
-            with open(self.log_path, "w") as f:
-                if hasattr(sys, "print_exception"):
-                    sys.print_exception(e, f)
-                else:
-                    import traceback
-                    traceback.print_exception(type(e), e, e.__traceback__, file=f)
-        except Exception:
-            pass
-
-    # -- the loop -----------------------------------------------------------------------------
-    def loop(self):
-        while True:
-            now = time.ticks_ms() & TICKS_MASK
-            self.step(now)
-            wait = ticks_diff(self.next_ms, time.ticks_ms() & TICKS_MASK)
-            if wait > 0:
-                self.stream.wait(wait if wait < _WAIT_MAX_MS else _WAIT_MAX_MS)
-
-
-def _read_json(path):
-    import json
-    with open(path) as f:
-        return json.load(f)
-
-
-def _hash8(text):
-    import binascii
-    try:
-        return binascii.unhexlify(text[:16])
-    except (ValueError, TypeError):
-        return bytes(8)
-
-
-def build(slot="."):
-    """Everything run() needs, from the slot folder written by `spinrail flash`."""
-    from boards import hal as H
-    from controller import profile
-    hw = _read_json(slot + "/hw.json")
-    try:
-        man = _read_json(slot + "/manifest.json")
-    except OSError:
-        man = {}
-    p = profile.load(slot + "/profile.json")
-    profile.forget_rules()
-    mode = L.MODE_LINK if hw["mode"] == "link" else L.MODE_STANDALONE
-    ident = L.make_ident(_hash8(man.get("fw_sha256", "")), _hash8(man.get("profile_sha256", "")),
-                         mode, p.period_ms, hw["link_timeout_ms"], hw["telemetry_ms"], hw["board"])
-    hal = H.make(hw)
-    return Firmware(p, hal, H.make_stream(hw), mode, ident, hw["link_timeout_ms"],
-                    hw["telemetry_ms"], slot + "/fault.log")
-
-
-def run(slot="."):
+def build(slot=".", stream=None):
+    """Everything run() needs, from the slot folder written by `spinrail flash`. stream: the
+    link's byte stream (read_into, write, wait); None: the one the board file names."""
     import gc
-    fw = build(slot)
+    if not hasattr(gc, "threshold"):  # CPython
+        return _build(slot, stream)
+    # Collect after every KB allocated while building: the garbage each step leaves (the
+    # validation code, parsed JSON, the loader's scratch) is freed before the next module's
+    # code and objects are placed, so they fill its holes instead of stranding them
+    # (fragmentation; on the unix port this lowered the heap floor by 6 KiB).
+    before = gc.threshold()
+    gc.threshold(_GC_STEP_B)
+    try:
+        return _build(slot, stream)
+    finally:
+        gc.threshold(before)  # the tick allocates nothing: no need to collect early then
+
+
+def _build(slot, stream):
+    import gc
+    import sys
+    from boards import load
+    hw, fw_h, prof_h, p = load.settings(slot)
+    del sys.modules["boards.load"]  # phase 1 is over: its code goes with the garbage
+    import boards
+    if hasattr(boards, "load"):
+        del boards.load
+    load = None
+    gc.collect()  # the validation code and the parsed documents, before the loop's code loads
+    from boards import hal as H
+    from boards.firmware import Firmware
+    from controller import link as L
+    mode = L.MODE_LINK if hw["mode"] == "link" else L.MODE_STANDALONE
+    ident = L.make_ident(fw_h, prof_h, mode, p.period_ms, hw["link_timeout_ms"],
+                         hw["telemetry_ms"], hw["board"])
+    return Firmware(p, H.make(hw), stream or H.make_stream(hw), mode, ident,
+                    hw["link_timeout_ms"], hw["telemetry_ms"], slot + "/fault.log")
+
+
+def run(slot=".", stream=None):
+    import gc
+    fw = build(slot, stream)
     gc.collect()
     try:
         fw.loop()
@@ -225,3 +60,11 @@ def run(slot="."):
         fw.hal.safe(True)
         fw.hal.reboot_to_repl()
         raise
+
+
+def __getattr__(name):
+    """main.Firmware still resolves (host tests import it from here), from firmware.py."""
+    if name == "Firmware":
+        from boards.firmware import Firmware
+        return Firmware
+    raise AttributeError(name)

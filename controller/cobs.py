@@ -9,10 +9,10 @@
 # Runs on MicroPython and CPython; the encoder and the streaming decoder allocate nothing.
 from controller.compat import const
 
-DELIM = const(0x00)
-ESC = const(0x10)
-INTR = const(0x03)
-FLIP = const(0x20)
+_DELIM = const(0x00)  # private constants: inlined, no RAM on the board
+_ESC = const(0x10)
+_INTR = const(0x03)
+_FLIP = const(0x20)
 TOO_LONG = const(-2)  # decode_into: the body does not fit the output buffer
 MALFORMED = const(-1)  # decode_into: not valid COBS
 
@@ -88,19 +88,19 @@ class Framer:
     def frame(self, body, n):
         k = encode_into(body, n, self.cobs, 0)
         out = self.out
-        out[0] = DELIM
+        out[0] = _DELIM
         o = 1
         c = self.cobs
         for i in range(k):
             b = c[i]
-            if b == INTR or b == ESC:
-                out[o] = ESC
-                out[o + 1] = b ^ FLIP
+            if b == _INTR or b == _ESC:
+                out[o] = _ESC
+                out[o + 1] = b ^ _FLIP
                 o += 2
             else:
                 out[o] = b
                 o += 1
-        out[o] = DELIM
+        out[o] = _DELIM
         return o + 1
 
 
@@ -112,7 +112,7 @@ class Deframer:
         self.cobs = bytearray(max_encoded(max_body))  # unstuffed COBS bytes of this frame
         self.body = bytearray(max_body)  # the last complete body
         self.n = 0  # COBS bytes held for the frame being received
-        self.esc = 0  # 1: the previous byte was ESC
+        self.esc = 0  # 1: the previous byte was the escape byte
         self.bad = 0  # 1: this frame is already lost, skip to the next delimiter
         self.blen = 0  # length of the body in self.body after push() returned 1
         self.frames = 0  # bodies delivered
@@ -120,7 +120,7 @@ class Deframer:
         self.malformed = 0  # frames dropped for bad COBS or a bad escape
 
     def push(self, b):
-        if b == DELIM:
+        if b == _DELIM:
             n = self.n
             self.n = 0
             if self.bad:
@@ -147,15 +147,15 @@ class Deframer:
             return 0
         if self.esc:
             self.esc = 0
-            b ^= FLIP
-            if b != INTR and b != ESC:
+            b ^= _FLIP
+            if b != _INTR and b != _ESC:
                 self.bad = 1
                 self.malformed += 1
                 return 0
-        elif b == ESC:
+        elif b == _ESC:
             self.esc = 1
             return 0
-        elif b == INTR:
+        elif b == _INTR:
             self.bad = 1  # never sent bare: the frame was damaged on the way
             self.malformed += 1
             return 0

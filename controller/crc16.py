@@ -6,8 +6,8 @@ from array import array
 
 from controller.compat import const
 
-POLY = const(0x1021)
-INIT = const(0xFFFF)
+_POLY = const(0x1021)
+_INIT = const(0xFFFF)
 
 
 def _make_table():
@@ -15,7 +15,7 @@ def _make_table():
     for i in range(256):
         c = i << 8
         for _ in range(8):
-            c = ((c << 1) ^ POLY) if c & 0x8000 else (c << 1)
+            c = ((c << 1) ^ _POLY) if c & 0x8000 else (c << 1)
         t[i] = c & 0xFFFF
     return t
 
@@ -23,7 +23,7 @@ def _make_table():
 _TABLE = _make_table()
 
 
-def crc16(buf, start=0, end=-1, crc=INIT):
+def crc16(buf, start=0, end=-1, crc=_INIT):
     """CRC of buf[start:end] (end -1: to the end), continuing from crc."""
     if end < 0:
         end = len(buf)

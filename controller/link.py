@@ -3,57 +3,48 @@
 # protocol is specified in docs/link.md.
 #
 # Body = type u8, seq u16, payload, crc u16 (CRC-16/CCITT-FALSE over type..payload); all
-# fields little-endian. The *_FMT struct formats are the layout spec: the host packs and
-# unpacks with struct, the board packs field by field into preallocated buffers (struct's
+# fields little-endian. The struct formats in link_host.py are the layout spec: the host packs
+# and unpacks with struct, the board packs field by field into preallocated buffers (struct's
 # unpack would allocate a tuple per frame), and the tests hold the two against each other.
-from controller.compat import const, ticks_diff
+# RAM on the board: constants used only here are private (`_NAME = const(...)`: inlined, no
+# global, no name string); the host sees them under their public names through link_host.py,
+# which the board never imports. Public constants are the ones other board code reads.
+from controller.compat import MICROPYTHON, const, ticks_diff
 from controller.cobs import Deframer, Framer
 from controller.crc16 import crc16
 
-PROTO = const(1)  # bumped on any layout change; the HELLO reply carries it
+_PROTO = const(1)  # bumped on any layout change; the HELLO reply carries it
 
-T_HELLO = const(0x01)  # host -> board: who are you (resets the sequence check)
+_T_HELLO = const(0x01)  # host -> board: who are you (resets the sequence check)
 T_MEAS = const(0x02)  # host -> board: one set of measurements
-T_HELLO_R = const(0x81)  # board -> host: identity
+_T_HELLO_R = const(0x81)  # board -> host: identity
 T_CMD = const(0x82)  # board -> host: commands and state after a tick
-T_TELEM = const(0x83)  # board -> host: periodic telemetry (both modes)
+_T_TELEM = const(0x83)  # board -> host: periodic telemetry (both modes)
 
 HEAD = const(3)  # type, seq
 CRC_LEN = const(2)
-MAX_PAYLOAD = const(96)
-MAX_BODY = const(101)  # HEAD + MAX_PAYLOAD + CRC_LEN
+_MAX_PAYLOAD = const(96)
+MAX_BODY = const(101)  # HEAD + _MAX_PAYLOAD + CRC_LEN
 
-HELLO_FMT = "<BH"  # proto, nonce
-HELLO_R_FMT = "<BH8s8sBHHH16s"  # proto, nonce, fw hash, profile hash, mode, period_ms,
-#                                 link_timeout_ms, telemetry_ms, board name (NUL-padded)
-MEAS_FMT = "<BI10iB12h"  # flags, t_ms, MEAS_FIELDS, n_taps, cell_mv[12]
-CMD_FMT = "<HIIHHHBHBBH"  # ack seq, ticks, now_ms, batt/cap/dump duty, switches, bal_mask,
-#                           stage, usb_match, fault
-TELEM_FMT = "<IIBH10i3HB9H"  # now_ms, ticks, stage, fault, MEAS_FIELDS, duties, switches,
-#                              TELEM_COUNTERS
-MEAS_FIELDS = ("bus_mv", "src_ma", "batt_mv", "batt_ma", "batt_temp_dc", "cap_mv", "cap_ma",
-               "usb_vbus_mv", "usb_dp_mv", "usb_dm_mv")
-TELEM_COUNTERS = ("rx_ok", "rx_crc", "rx_malformed", "rx_oversized", "rx_order", "rx_gaps",
-                  "link_losses", "exceptions", "late_ticks")
 MEAS_LEN = const(70)
 CMD_LEN = const(23)
-TELEM_LEN = const(76)
-HELLO_LEN = const(3)
-HELLO_R_LEN = const(42)
-N_CELLS = const(12)
+_TELEM_LEN = const(76)
+_HELLO_LEN = const(3)
+_HELLO_R_LEN = const(42)
+_N_CELLS = const(12)
 
 F_STEP = const(1)  # MEAS flags: tick now with now_ms = t_ms (lock-step), reply CMD
-F_EQ = const(2)  # eq_req
-F_RESET = const(4)  # reset_req
-SW_USB_CONV = const(1)  # switches byte
-SW_USB_ON = const(2)
-SW_USB_PROBE = const(4)
-SW_BATT_OUT = const(8)
+_F_EQ = const(2)  # eq_req
+_F_RESET = const(4)  # reset_req
+_SW_USB_CONV = const(1)  # switches byte
+_SW_USB_ON = const(2)
+_SW_USB_PROBE = const(4)
+_SW_BATT_OUT = const(8)
 
 MODE_STANDALONE = const(0)
 MODE_LINK = const(1)
 
-EV_NONE = const(0)
+_EV_NONE = const(0)
 EV_HELLO = const(1)  # send hello_frame()
 EV_MEAS = const(2)  # self.m holds new measurements (realtime: tick on the board's period)
 EV_STEP = const(3)  # as EV_MEAS, and tick now with now_ms = self.step_ms, then cmd_frame()
@@ -124,45 +115,45 @@ class BoardLink:
         self.losses = 0  # silences past the timeout
 
     def push(self, byte, now_ms):
-        """Feed one received byte. Returns EV_NONE, EV_HELLO, EV_MEAS or EV_STEP."""
+        """Feed one received byte. Returns EV_NONE (0), EV_HELLO, EV_MEAS or EV_STEP."""
         rx = self.rx
         if not rx.push(byte):
-            return EV_NONE
+            return _EV_NONE
         b = rx.body
         n = rx.blen
         if n < HEAD + CRC_LEN:
             self.rx_short += 1
-            return EV_NONE
+            return _EV_NONE
         if crc16(b, 0, n - CRC_LEN) != get16(b, n - CRC_LEN):
             self.rx_crc += 1
-            return EV_NONE
+            return _EV_NONE
         t = b[0]
         plen = n - HEAD - CRC_LEN
         seq = get16(b, 1)
-        if t == T_HELLO:
-            if plen != HELLO_LEN:
+        if t == _T_HELLO:
+            if plen != _HELLO_LEN:
                 self.rx_short += 1
-                return EV_NONE
+                return _EV_NONE
             self.nonce = get16(b, HEAD + 1)
             self.rx_seq = seq
             self.rx_ok += 1
             return EV_HELLO
         if t != T_MEAS or plen != MEAS_LEN:
             self.rx_short += 1
-            return EV_NONE
+            return _EV_NONE
         if self.rx_seq >= 0:
             d = (seq - self.rx_seq) & 0xFFFF
             if d == 0 or d >= 0x8000:
                 self.rx_order += 1
-                return EV_NONE
+                return _EV_NONE
             self.rx_gaps += d - 1
         if self.m is None:
             self.rx_ignored += 1
             self.rx_seq = seq
-            return EV_NONE
+            return _EV_NONE
         if not self._decode_meas(b, HEAD):
             self.rx_short += 1
-            return EV_NONE
+            return _EV_NONE
         self.rx_seq = seq
         self.meas_seq = seq
         self.rx_ok += 1
@@ -180,12 +171,12 @@ class BoardLink:
             if not _top_ok(b, o + 5 + 4 * k):
                 return 0
         nt = b[o + 45]
-        if nt > N_CELLS:
+        if nt > _N_CELLS:
             return 0
         m = self.m
         fl = b[o]
-        m.eq_req = 1 if fl & F_EQ else 0
-        m.reset_req = 1 if fl & F_RESET else 0
+        m.eq_req = 1 if fl & _F_EQ else 0
+        m.reset_req = 1 if fl & _F_RESET else 0
         m.bus_mv = gets32(b, o + 5)
         m.src_ma = gets32(b, o + 9)
         m.batt_mv = gets32(b, o + 13)
@@ -198,7 +189,7 @@ class BoardLink:
         m.usb_dm_mv = gets32(b, o + 41)
         m.n_taps = nt
         cells = m.cell_mv
-        for i in range(N_CELLS):
+        for i in range(_N_CELLS):
             cells[i] = gets16(b, o + 46 + 2 * i)
         return 1
 
@@ -223,12 +214,12 @@ class BoardLink:
 
     def hello_frame(self):
         b = self.body
-        b[HEAD] = PROTO
+        b[HEAD] = _PROTO
         put16(b, HEAD + 1, self.nonce)
         ident = self.ident
         for i in range(len(ident)):
             b[HEAD + 3 + i] = ident[i]
-        return self._finish(T_HELLO_R, HELLO_R_LEN)
+        return self._finish(_T_HELLO_R, _HELLO_R_LEN)
 
     def cmd_frame(self, c, ticks, now_ms):
         b = self.body
@@ -277,18 +268,18 @@ class BoardLink:
         put16(b, o + 70, self.losses & 0xFFFF)
         put16(b, o + 72, exceptions & 0xFFFF)
         put16(b, o + 74, late & 0xFFFF)
-        return self._finish(T_TELEM, TELEM_LEN)
+        return self._finish(_T_TELEM, _TELEM_LEN)
 
 
 def _switches(c):
-    return ((SW_USB_CONV if c.usb_conv else 0) | (SW_USB_ON if c.usb_on else 0)
-            | (SW_USB_PROBE if c.usb_probe else 0) | (SW_BATT_OUT if c.batt_out else 0))
+    return ((_SW_USB_CONV if c.usb_conv else 0) | (_SW_USB_ON if c.usb_on else 0)
+            | (_SW_USB_PROBE if c.usb_probe else 0) | (_SW_BATT_OUT if c.batt_out else 0))
 
 
 def make_ident(fw_hash, profile_hash, mode, period_ms, timeout_ms, telemetry_ms, board):
     """The HELLO reply's fixed part (built once at start-up): hashes as bytes (first 8 used),
     board name as str (first 16 bytes used)."""
-    out = bytearray(HELLO_R_LEN - 3)
+    out = bytearray(_HELLO_R_LEN - 3)
     for i in range(8):
         out[i] = fw_hash[i] if i < len(fw_hash) else 0
         out[8 + i] = profile_hash[i] if i < len(profile_hash) else 0
@@ -300,3 +291,8 @@ def make_ident(fw_hash, profile_hash, mode, period_ms, timeout_ms, telemetry_ms,
     for i in range(min(16, len(name))):
         out[23 + i] = name[i]
     return out
+
+
+if not MICROPYTHON:  # the host's names: formats, field names, the private constants
+    from controller import link_host as _host
+    _host.publish(globals())

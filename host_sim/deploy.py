@@ -3,8 +3,9 @@
 # Board layout (A/B slots):
 #   /main.py            boot stub (boards/stub_main.py): runs the slot named in boot_target.txt
 #   /boot_target.txt    "sr_a" or "sr_b": the active slot, rewritten last (new file + rename)
-#   /sr_a/, /sr_b/      controller/*.mpy, boards/{__init__,hal,main}.mpy, hw.json, board.json,
-#                       profile.json, manifest.json (hashes of everything above)
+#   /sr_a/, /sr_b/      controller/*.mpy, boards/{__init__,firmware,hal,hal_machine,load,main}.mpy,
+#                       hw.json, board.json, profile.json, manifest.json (hashes of everything
+#                       above)
 # The new firmware goes into the inactive slot; every file is read back as a sha256 computed
 # on the board and compared; only then does boot_target.txt change. An interrupted flash
 # leaves the active slot and the stub untouched, so the board boots the previous version.
@@ -26,7 +27,8 @@ from host_sim.errors import UserError
 
 SLOTS = ("sr_a", "sr_b")
 STUB = ROOT / "boards" / "stub_main.py"
-BOARD_SOURCES = ("boards/__init__.py", "boards/hal.py", "boards/main.py")
+BOARD_SOURCES = ("boards/__init__.py", "boards/firmware.py", "boards/hal.py",
+                 "boards/hal_machine.py", "boards/load.py", "boards/main.py")
 _TARGET = "boot_target.txt"
 _READ_TIMEOUT_S = 1.0
 

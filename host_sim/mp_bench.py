@@ -2,7 +2,6 @@
 #   mp_bench.py alloc N     -> bytes allocated over N steady-state ticks (gc disabled)
 #   mp_bench.py ticks N     -> runs N ticks (for callgrind: instructions of N ticks ...)
 #   mp_bench.py loop N      -> ... minus the same loop with the tick call left out
-#   mp_bench.py floor N     -> loads the profile, frees the rules, runs N ticks (heap floor)
 # The readings are generated with integer arithmetic so the loop itself allocates nothing.
 import gc
 import sys
@@ -65,7 +64,7 @@ def main(argv):
         c = gc.mem_alloc()
         gc.enable()
         print("alloc", (c - b) - (b - a), n)
-    elif mode in ("ticks", "floor"):
+    elif mode == "ticks":
         run(sup, n, 1, t)
         print(mode, sup.ticks)
     elif mode == "loop":
