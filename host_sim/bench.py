@@ -9,6 +9,10 @@
 #                           board as `spinrail flash` does, boots from its stub and answers
 #                           1,000 lock-step ticks over the pty (each equal to CPython's)
 #   cpython_ticks_per_s     median of repeated runs of the same workload on CPython
+#   tick_code_bytes         the tick's modules compiled as `spinrail flash` does for each
+#                           board's arch (native code), and as bytecode for comparison: on the
+#                           unix port native code lives outside the GC heap, so heap_floor_kb
+#                           does not see it; on a microcontroller it may not (docs/performance.md)
 #   sim_speedup, vs_ngspice, vs_ngspice_error_pct, batch_scenarios_per_s: the plant side
 import json
 import os
@@ -19,6 +23,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from pathlib import Path
 
 from host_sim.common import ROOT, find_micropython
 from host_sim.errors import UserError
@@ -225,6 +230,39 @@ def cpython_ticks_per_s(n=20000, repeats=5):
     return statistics.median(rates)
 
 
+TICK_MODULES = ("supervisor", "leadacid", "supercap", "usbport", "overvolt", "buckloop", "mppt",
+                "signals", "compat")
+
+
+def tick_code_bytes():
+    """Bytes of .mpy for the tick's modules: native for each board arch, and bytecode (the
+    @micropython.native lines dropped) for comparison."""
+    from host_sim.deploy import find_mpy_cross
+    exe = find_mpy_cross()
+    out = {}
+    with tempfile.TemporaryDirectory() as d:
+        for arch in ("armv6m", "xtensawin", "x64", "bytecode"):
+            total = 0
+            for name in TICK_MODULES:
+                src = ROOT / "controller" / (name + ".py")
+                if arch == "bytecode":
+                    text = "".join(line for line in src.read_text().splitlines(True)
+                                   if line.strip() != "@micropython.native")
+                    src = Path(d) / (name + ".py")
+                    src.write_text(text)
+                dst = Path(d) / (name + ".mpy")
+                cmd = [str(exe), "-O1", "-o", str(dst)]
+                if arch != "bytecode":
+                    cmd.append("-march=" + arch)
+                r = subprocess.run(cmd + [str(src)], capture_output=True, text=True)
+                if r.returncode:
+                    raise UserError("mpy-cross failed on %s (%s): %s" % (name, arch, r.stderr),
+                                    exit_code=1)
+                total += dst.stat().st_size
+            out[arch] = total
+    return out
+
+
 def collect(quick=False, log=print):
     res = {}
     log("bench: MicroPython allocation ...")
@@ -237,6 +275,7 @@ def collect(quick=False, log=print):
     res["heap_floor_kb"] = heap_floor_kb(log=log)
     log("bench: CPython ticks per second ...")
     res["cpython_ticks_per_s"] = round(cpython_ticks_per_s(5000 if quick else 20000))
+    res["tick_code_bytes"] = tick_code_bytes()
     try:
         from host_sim import bench_plant
     except ImportError:
@@ -259,7 +298,11 @@ def cmd_bench(args):
             continue
         g = GOALS.get(k)
         goal = ""
-        if g:
+        if isinstance(v, dict):
+            v = ", ".join("%s %s" % kv for kv in v.items())
+        elif g and v is None:
+            goal = "%s %s  (not measured)" % g
+        elif g:
             ok = v <= g[1] if g[0] == "<=" else v >= g[1]
             goal = "%s %s  %s" % (g[0], g[1], "met" if ok else "NOT met")
         print("%-26s %14s   %s" % (k, v, goal))
