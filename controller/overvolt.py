@@ -11,6 +11,13 @@ from controller.signals import DUTY_MAX
 # source that was held by the full dump would otherwise find an unloaded bus (the storage
 # converters restart from zero) and overshoot the trip within one period.
 _RELEASE_STEP = const(1000)
+# Soft zone: between the recovery level and the trip the dump load comes in in proportion
+# (none at recovery, full at the trip) at once, and lets go by at most _SOFT_RELEASE per period.
+# A source the storage cannot take lifts the bus faster as the converters back off (a buck
+# draws less input current from a higher bus: a negative resistance on a soft source); a strong
+# rider took the bus from 19.5 V past the trip plus margin in two 20 ms periods. Loading it
+# before the trip keeps the latch for what the soft zone cannot hold.
+_SOFT_RELEASE = const(500)
 
 
 class OverVoltGuard:
@@ -24,7 +31,10 @@ class OverVoltGuard:
         self.next = 0  # ring index for the next trip
         self.last_ms = 0  # now_ms of the newest trip in trip_at
         self.trips_total = 0  # trips since start (telemetry)
-        self.dump = 0  # dump duty the guard asks for: full while latched, then stepping down
+        self.ramp = 0  # latch dump: full while latched, then stepping down by _RELEASE_STEP
+        self.soft = 0  # soft-zone dump duty of the last period (0..DUTY_MAX)
+        self.soft_span_mv = max(1, p.ovp_trip_mv - p.ovp_recover_mv)  # recovery to trip, mV
+        self.dump = 0  # dump duty the guard asks for: the larger of ramp and soft
 
     @micropython.native
     def update(self, bus_mv, dt_ms, now_ms, reset_req):
@@ -50,12 +60,26 @@ class OverVoltGuard:
         if reset_req and self.locked and not self.tripped:
             self.locked = 0
             self.n_trips = 0
+        ramp = self.ramp
         if self.tripped:
-            self.dump = DUTY_MAX
-        elif self.dump > _RELEASE_STEP:
-            self.dump -= _RELEASE_STEP
+            ramp = DUTY_MAX
+        elif ramp > _RELEASE_STEP:
+            ramp -= _RELEASE_STEP
         else:
-            self.dump = 0
+            ramp = 0
+        self.ramp = ramp
+        soft = 0
+        over = bus_mv - p.ovp_recover_mv
+        span = self.soft_span_mv
+        if over >= span:
+            soft = DUTY_MAX
+        elif over > 0:
+            soft = (over * DUTY_MAX) // span  # over < span < 60 V: stays a small int
+        held = self.soft - _SOFT_RELEASE
+        if soft < held:
+            soft = held
+        self.soft = soft
+        self.dump = ramp if ramp > soft else soft
 
     @micropython.native
     def _record(self, now_ms):

@@ -16,6 +16,7 @@ seconds) with exact fractions, and from the documents that define them:
 None of the controller's functions is called here. Each check_* raises AssertionError naming the
 tick, its readings and its commands.
 """
+import math
 from fractions import Fraction as F
 
 from controller.signals import (
@@ -270,6 +271,7 @@ class OvpOracle:
 
 
 RELEASE_PERIODS = 10  # overvolt.py: after the latch clears the dump steps down over ten periods
+SOFT_RELEASE = DUTY_MAX // 20  # docs/profile.md: the soft zone's dump falls 5 % per period
 OVERSPEED_RAMP_MV = 1000  # docs/profile.md: the overspeed dump goes 0 -> full over 1 V ...
 OVERSPEED_RELEASE = DUTY_MAX // 20  # ... and falls by at most 5 % of full per period
 
@@ -287,16 +289,32 @@ def check_i5(ticks, L):
     USB off and both storage duties 0, in that tick; the latch holds until the bus has read
     below recovery for the hold time, then the dump load steps down to off over ten periods;
     lockout_trips trips within the window keep every output off until reset.
-    With MPPT and an overspeed level the dump load also follows the bus above it (full over
+    Between recovery and the trip the dump load comes in in proportion at once (none at
+    recovery, full at the trip) and lets go by at most 5 % of full per period. With MPPT and an overspeed level the dump load also follows the bus above it (full over
     1 V) at once, and lets go by at most 5 % of full per period (docs/profile.md, control)."""
     o = OvpOracle(L)
     prev_abs = None
     guard_dump = 0  # what the guard asks of the dump load
     ovs_dump = 0  # what overspeed asks of it (advanced on the ticks that reach the tracker)
+    soft_dump = 0  # the guard's soft zone (docs/profile.md, bus)
+    trip_mv = math.floor(L.trip_mv + F(1, 2))  # the profile's integer mV (to_int rounding)
+    rec_mv = math.floor(L.recover_mv + F(1, 2))
+    span_mv = max(1, trip_mv - rec_mv)
     for t in ticks:
         m, c = t.m, t.c
-        o.step(t, 0 if prev_abs is None else t.t_abs - prev_abs, bus_suspect(t, L))
+        suspect = bus_suspect(t, L)
+        o.step(t, 0 if prev_abs is None else t.t_abs - prev_abs, suspect)
         prev_abs = t.t_abs
+        # the bus the guard judges: over range counts as the trip; below range, or a reading
+        # the cross-check doubts (under the trip), as the recovery level
+        gb = m.bus_mv
+        if gb > L.bus_fs:
+            gb = trip_mv
+        elif gb < NEG_MV or (suspect and gb < trip_mv):
+            gb = rec_mv
+        over = gb - rec_mv
+        prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // span_mv)
+        soft_dump = max(prop, soft_dump - SOFT_RELEASE)
         if L.overspeed_mv is not None and not c.fault & (F_BUS_SENSOR | F_OVP | F_OVP_LOCKOUT):
             over = m.bus_mv - L.overspeed_mv
             prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // OVERSPEED_RAMP_MV)
@@ -309,10 +327,10 @@ def check_i5(ticks, L):
         else:
             guard_dump = max(0, guard_dump - DUTY_MAX // RELEASE_PERIODS)
             assert not c.fault & F_OVP, _where(t, "ovp bit set with the latch clear")
-            want = max(guard_dump, ovs_dump)
+            want = max(guard_dump, soft_dump, ovs_dump)
             assert c.dump_duty == want, _where(
-                t, "dump %d, the guard's release ramp is at %d, overspeed asks %d"
-                % (c.dump_duty, guard_dump, ovs_dump))
+                t, "dump %d, the guard's release ramp is at %d, its soft zone at %d, overspeed "
+                   "asks %d" % (c.dump_duty, guard_dump, soft_dump, ovs_dump))
         if o.locked:
             assert c.fault & F_OVP_LOCKOUT, _where(t, "locked out, lockout bit clear")
             assert storage_and_usb_off(c) and c.batt_out == 0, _where(t, "locked out, outputs on")
