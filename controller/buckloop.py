@@ -54,6 +54,17 @@ class BuckLoop:
             if last and (bus_mv - last > _SETTLE_MV or last - bus_mv > _SETTLE_MV):
                 return 0
             u = out_mv
+        else:
+            # u no further above what last period's duty makes from this bus than the current
+            # headroom allows (taken over an 0.125 ohm path): on a falling bus the converter
+            # delivered less than u, the current loop wound u up to make up for it, and a bus
+            # that stops falling would hand the store all of it at once (a crank's bus settling
+            # took the battery 11 % over its limit for two periods)
+            made = (self.duty * bus_mv) // DUTY_MAX
+            if out_ma < lim_ma:
+                made += (lim_ma - out_ma) >> 3
+            if u > made:
+                u = made
         step = (ceil_mv - out_mv) >> _KV_SHIFT
         s = lim_ma - (lim_ma >> 5) - out_ma  # aim 3 % under the limit: room for noise
         s = s // _KI_DIV if s >= 0 else s // _KI_OVER_DIV

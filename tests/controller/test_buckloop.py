@@ -55,12 +55,29 @@ def test_current_over_the_limit_pulls_down():
 
 
 def test_bus_under_the_floor_pulls_down():
+    """A bus under its floor pulls u down and never lets it rise, to the floor under the
+    output (_UNDER_MV) at most."""
     b = running_loop()
     u0 = b.u_mv
+    b.update(13000, 14400, 500, 2000, 15000, 16000, BIG_MV)  # the generator sags
+    assert b.u_mv < u0
     for _ in range(3):
-        b.update(13000, 14400, 500, 2000, 15000, 16000, BIG_MV)  # the generator sags
-        assert b.u_mv < u0
         u0 = b.u_mv
+        b.update(13000, 14400, 500, 2000, 15000, 16000, BIG_MV)
+        assert 13000 - buckloop._UNDER_MV <= b.u_mv <= u0
+
+
+def test_u_follows_what_a_falling_bus_delivered():
+    """Regression (closed loop, a crank whose bus stopped falling): on a falling bus the duty
+    delivers less than u; u may stay above what last period's duty makes from this bus by no
+    more than the current headroom over an 0.125 ohm path, so a bus that stops falling cannot
+    hand the battery a wound-up u (it took it 11 % over its limit for two periods)."""
+    b = running_loop()
+    for bus_mv in range(18000, 15000, -200):  # falling 0.2 V a period, current near the limit
+        d_prev = b.duty
+        b.update(13000, 14400, 1900, 2000, bus_mv, 9000, BIG_MV)
+        made = d_prev * bus_mv // DUTY_MAX
+        assert b.u_mv <= made + (2000 - 1900) // 8 + STEP_UP_MV
 
 
 def test_never_winds_far_below_the_output_within_the_current_limit():
