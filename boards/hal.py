@@ -3,7 +3,6 @@
 # stream, the REPL's channel as a stream, and the virtual board's stub layer. A real chip's
 # layer (machine.ADC, PWM, Pin, WDT; a separate UART) is in hal_machine.py, imported only on a
 # real chip: the virtual board and the heap floor never load its code.
-import time  # noqa: F401  (hal_machine sleeps through hal.time: one place for tests to stub)
 
 
 class StdioStream:
@@ -83,11 +82,3 @@ def make_stream(hw):
         from boards.hal_machine import UartStream
         return UartStream(machine, spec)
     return StdioStream()
-
-
-def __getattr__(name):
-    """hal.MachineHal and hal.UartStream still resolve (host tests), from hal_machine."""
-    if name in ("MachineHal", "UartStream"):
-        from boards import hal_machine
-        return getattr(hal_machine, name)
-    raise AttributeError(name)

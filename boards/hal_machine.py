@@ -3,8 +3,8 @@
 # link. The machine module is passed in (hal.make imports it), so the host tests can pass a
 # stand-in. Scaling is integer-only: pin_mv -> ((pin_mv - offset_mv) * k) >> shift, k and shift
 # chosen on the host so nothing leaves the small-int range; the NTC is a 33-point table.
-# The time module is reached through hal (hal.time), where the host tests replace it.
-from boards import hal as _hal
+import time  # the host tests replace hal_machine.time
+
 from controller.compat import const
 from controller.signals import DUTY_MAX
 
@@ -22,7 +22,7 @@ class UartStream:
     def wait(self, ms):
         if self.uart.any():
             return 1
-        _hal.time.sleep_ms(ms if ms < 2 else 2)
+        time.sleep_ms(ms if ms < 2 else 2)
         return self.uart.any()
 
     def read_into(self, buf):
@@ -94,7 +94,7 @@ class MachineHal:
             for i in range(len(self.sel)):
                 self.sel[i].value((ch >> i) & 1)
             if self.settle_us:
-                _hal.time.sleep_us(self.settle_us)
+                time.sleep_us(self.settle_us)
             adc = self.mux_adc
         if self.uv:
             return adc.read_uv() // 1000

@@ -44,10 +44,16 @@ def _build(slot, stream):
     from boards.firmware import Firmware
     from controller import link as L
     mode = L.MODE_LINK if hw["mode"] == "link" else L.MODE_STANDALONE
-    ident = L.make_ident(fw_h, prof_h, mode, p.period_ms, hw["link_timeout_ms"],
-                         hw["telemetry_ms"], hw["board"])
-    return Firmware(p, H.make(hw), stream or H.make_stream(hw), mode, ident,
-                    hw["link_timeout_ms"], hw["telemetry_ms"], slot + "/fault.log")
+    timeout_ms = hw["link_timeout_ms"]
+    telemetry_ms = hw["telemetry_ms"]
+    ident = L.make_ident(fw_h, prof_h, mode, p.period_ms, timeout_ms, telemetry_ms, hw["board"])
+    hal = H.make(hw)  # on a chip this starts the watchdog: as before, after the imports above
+    stream = stream or H.make_stream(hw)
+    hw = None
+    # the board table is read: free it before the loop's objects are placed (the build's last
+    # allocations, the link's buffers, are where a tight heap gave out; 1 KiB lower floor)
+    gc.collect()
+    return Firmware(p, hal, stream, mode, ident, timeout_ms, telemetry_ms, slot + "/fault.log")
 
 
 def run(slot=".", stream=None):
@@ -60,11 +66,3 @@ def run(slot=".", stream=None):
         fw.hal.safe(True)
         fw.hal.reboot_to_repl()
         raise
-
-
-def __getattr__(name):
-    """main.Firmware still resolves (host tests import it from here), from firmware.py."""
-    if name == "Firmware":
-        from boards.firmware import Firmware
-        return Firmware
-    raise AttributeError(name)

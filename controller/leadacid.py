@@ -5,18 +5,21 @@
 # conservative options) and raise F_TEMP_SENSOR. A lead-acid battery left uncharged for a
 # while is harmed far less than one overcharged hot with no compensation.
 from controller.buckloop import BuckLoop
-from controller.compat import const, micropython
+from controller.compat import MICROPYTHON, const, micropython
 from controller.signals import (
     F_BATT_ABSENT, F_BATT_OVER, F_BATT_REVERSED, F_TEMP_SENSOR, F_TEMP_WINDOW,
     ST_ABSORPTION, ST_BULK, ST_EQUALIZE, ST_FLOAT,
 )
 
-TEMP_MIN_PLAUSIBLE_DC = const(-400)  # an open NTC reads colder than this
-TEMP_MAX_PLAUSIBLE_DC = const(850)  # a shorted NTC reads hotter than this
+_TEMP_MIN_PLAUSIBLE_DC = const(-400)  # an open NTC reads colder than this
+_TEMP_MAX_PLAUSIBLE_DC = const(850)  # a shorted NTC reads hotter than this
 _TEMP_HYST_DC = const(10)  # charging resumes 1.0 C inside the window (a noisy sensor at the
 # edge would otherwise switch the charger, and the load on the drive, on and off every tick)
 _REVERSED_MV = const(-200)  # a battery this far negative is connected backwards
 _BIG_MV = const(100000)
+if not MICROPYTHON:  # the host's names for the plausible range (private on the board: no RAM)
+    TEMP_MIN_PLAUSIBLE_DC = _TEMP_MIN_PLAUSIBLE_DC
+    TEMP_MAX_PLAUSIBLE_DC = _TEMP_MAX_PLAUSIBLE_DC
 
 
 @micropython.native
@@ -113,7 +116,7 @@ class LeadAcidCharger:
         fault = 0
         t = m.batt_temp_dc
         v = m.batt_mv
-        if t < TEMP_MIN_PLAUSIBLE_DC or t > TEMP_MAX_PLAUSIBLE_DC:
+        if t < _TEMP_MIN_PLAUSIBLE_DC or t > _TEMP_MAX_PLAUSIBLE_DC:
             fault = F_TEMP_SENSOR
         else:
             lo = p.temp_min_dc

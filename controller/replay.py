@@ -1,10 +1,11 @@
 # Run a CSV of per-tick measurements through the supervisor and write one row of commands per
 # tick. The same code runs on CPython and on the MicroPython unix port, so the two outputs can
 # be compared byte for byte. Parsing allocates; the tick itself does not.
+# The names come from the host-side modules: the board modules keep only the codes.
 from controller.compat import TICKS_MASK
-from controller.signals import STAGE_NAMES
+from controller.signals_host import STAGE_NAMES
 from controller.supervisor import Supervisor
-from controller.usbport import MATCH_NAMES
+from controller.usbport_host import MATCH_NAMES
 
 REQUIRED = ("t_ms", "bus_mv", "batt_mv", "batt_ma", "batt_temp_dc", "cap_mv", "usb_vbus_mv",
             "usb_dp_mv", "usb_dm_mv")

@@ -1,6 +1,6 @@
 # Measurements in, Commands out: the two objects that cross the controller's boundary every
 # tick. Both are made once and mutated in place (no allocation in the tick).
-from controller.compat import const, micropython
+from controller.compat import MICROPYTHON, const, micropython
 
 DUTY_MAX = const(10000)  # converter and dump duties are in 0.01 % steps: 0 off .. 10000 full
 
@@ -10,7 +10,7 @@ ST_BULK = const(1)  # constant current (or whatever the source gives) up to abso
 ST_ABSORPTION = const(2)  # constant compensated voltage until the tail current or time limit
 ST_FLOAT = const(3)  # lower compensated holding voltage
 ST_EQUALIZE = const(4)  # flooded only, on request, time-limited
-STAGE_NAMES = ("blocked", "bulk", "absorption", "float", "equalize")
+# their names (STAGE_NAMES) are host-only: controller/signals_host.py
 
 # Fault bits (Commands.fault). Several may be set at once.
 F_OVP = const(1)  # bus at or above the overvoltage trip, or latched after one
@@ -28,13 +28,9 @@ F_CAP_CELL = const(2048)  # a supercap cell at or above its rating
 F_USB_LINES = const(4096)  # port check failed: VBUS or data lines do not match
 F_FIRMWARE = const(8192)  # the firmware entry caught an exception (set by boards/)
 F_LINK = const(16384)  # link mode: measurements stopped arriving (set by the link)
-FAULT_NAMES = (
-    "ovp", "ovp_lockout", "bus_sensor", "batt_sensor", "temp_sensor", "cap_sensor",
-    "usb_sensor", "batt_absent", "batt_reversed", "temp_window", "batt_over", "cap_cell",
-    "usb_lines", "firmware", "link",
-)
+# their names (FAULT_NAMES, bit i -> index i) are host-only: controller/signals_host.py
 
-MAX_CELL_TAPS = const(12)
+_MAX_CELL_TAPS = const(12)  # private: no dict entry on the board (host: MAX_CELL_TAPS)
 
 
 class Measurements:
@@ -51,7 +47,7 @@ class Measurements:
         self.usb_vbus_mv = 0  # 5 V converter output (VBUS), mV
         self.usb_dp_mv = 0  # USB D+ line, mV
         self.usb_dm_mv = 0  # USB D- line, mV
-        self.cell_mv = [0] * MAX_CELL_TAPS  # supercap cell tap voltages, mV (first n_taps used)
+        self.cell_mv = [0] * _MAX_CELL_TAPS  # supercap cell tap voltages, mV (first n_taps used)
         self.n_taps = 0  # how many cell taps the board senses (0: none)
         self.eq_req = 0  # 1 while the user asks for an equalize charge (flooded only)
         self.reset_req = 0  # 1 to clear an overvoltage lockout
@@ -102,3 +98,8 @@ class Commands:
         self.usb_probe = 0
         self.bal_mask = 0
         self.batt_out = 0
+
+
+if not MICROPYTHON:  # the host's names: stage and fault names, MAX_CELL_TAPS
+    from controller import signals_host as _host
+    _host.publish(globals())

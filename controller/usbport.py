@@ -10,17 +10,17 @@
 #  - div_*: resistor dividers from VBUS giving D+/D- levels of 2.0 V or 2.7 V at VBUS 5.00 V
 #    (common practice). The windows scale with the measured VBUS (the dividers track it).
 #  - short_1v2: D+ tied to D-, biased to about 1.2 V at VBUS 5.00 V (common practice).
-from controller.compat import const, micropython
+from controller.compat import MICROPYTHON, const, micropython
 from controller.signals import F_USB_LINES
 
-M_NONE = const(0)  # usb_match: the readings match no scheme
+_M_NONE = const(0)  # usb_match: the readings match no scheme
 # usb_match for a scheme is 1 + its index in profile_fields.SCHEMES
-M_DCP = const(1)
-M_DIV_2V0_2V7 = const(2)
-M_DIV_2V7_2V0 = const(3)
-M_DIV_2V7_2V7 = const(4)
-M_SHORT_1V2 = const(5)
-MATCH_NAMES = ("none", "dcp", "div_2v0_2v7", "div_2v7_2v0", "div_2v7_2v7", "short_1v2")
+_M_DCP = const(1)
+_M_DIV_2V0_2V7 = const(2)
+_M_DIV_2V7_2V0 = const(3)
+_M_DIV_2V7_2V7 = const(4)
+_M_SHORT_1V2 = const(5)
+# private: no dict entries on the board; the host's M_* and MATCH_NAMES: usbport_host.py
 
 _VNOM_MV = const(5000)  # divider levels are quoted at VBUS = 5.00 V
 _L20 = const(2000)
@@ -42,28 +42,28 @@ def classify(dp_mv, dm_mv, vbus_mv, probe, tol_pct, short_mv):
     shorted = -short_mv <= d <= short_mv
     if probe:
         if shorted and _DP_SRC_MIN_MV <= dp_mv <= _DP_SRC_MAX_MV and dm_mv > _DAT_REF_MAX_MV:
-            return M_DCP
-        return M_NONE
+            return _M_DCP
+        return _M_NONE
     if shorted:
         lv = (_L12 * vbus_mv) // _VNOM_MV
         w = (lv * tol_pct) // 100
         if lv - w <= dp_mv <= lv + w and lv - w <= dm_mv <= lv + w:
-            return M_SHORT_1V2
+            return _M_SHORT_1V2
         if dp_mv < _LGC_MIN_MV and dm_mv < _LGC_MIN_MV:
-            return M_DCP
+            return _M_DCP
     l20 = (_L20 * vbus_mv) // _VNOM_MV
     w20 = (l20 * tol_pct) // 100
     l27 = (_L27 * vbus_mv) // _VNOM_MV
     w27 = (l27 * tol_pct) // 100
     if l20 - w20 <= dp_mv <= l20 + w20:
         if l27 - w27 <= dm_mv <= l27 + w27:
-            return M_DIV_2V0_2V7
+            return _M_DIV_2V0_2V7
     elif l27 - w27 <= dp_mv <= l27 + w27:
         if l20 - w20 <= dm_mv <= l20 + w20:
-            return M_DIV_2V7_2V0
+            return _M_DIV_2V7_2V0
         if l27 - w27 <= dm_mv <= l27 + w27:
-            return M_DIV_2V7_2V7
-    return M_NONE
+            return _M_DIV_2V7_2V7
+    return _M_NONE
 
 
 class UsbPort:
@@ -74,7 +74,7 @@ class UsbPort:
         self.on = 0  # port load switch closed
         self.probe = 0  # D+ probe sourced by this tick's command
         self.probe_was = 0  # probe state while this tick's readings were taken
-        self.match = M_NONE  # scheme the latest readings match
+        self.match = _M_NONE  # scheme the latest readings match
         self.ok_ms = 0  # how long VBUS and lines have matched, ms
         self.fault = 0  # this tick's fault bits (F_USB_LINES while the converter runs unmatched)
         self.conv_ms = 0  # how long the converter has run, ms (capped at the debounce time)
@@ -87,7 +87,7 @@ class UsbPort:
         self.probe = 0
         self.probe_was = 0
         self.ok_ms = 0
-        self.match = M_NONE
+        self.match = _M_NONE
 
     @micropython.native
     def update(self, m, dt_ms):
@@ -127,6 +127,11 @@ class UsbPort:
             # a fault once the converter has run for the debounce time: not while it starts
             self.fault = F_USB_LINES if conv_ms >= deb else 0
         self.on = on
-        probe = 1 if (want == M_DCP and conv and not on) else 0
+        probe = 1 if (want == _M_DCP and conv and not on) else 0
         self.probe = probe
         self.probe_was = probe
+
+
+if not MICROPYTHON:  # the host's names: M_* match codes and MATCH_NAMES
+    from controller import usbport_host as _host
+    _host.publish(globals())

@@ -1,6 +1,6 @@
 # In-process stand-ins for the board's stream and hardware, and a host link wired to them, so
 # the firmware's loop runs on CPython with a fake clock.
-from boards.main import Firmware
+from boards.firmware import Firmware
 from controller import link as L
 from controller.profile import default_path, load
 from controller.signals import Measurements

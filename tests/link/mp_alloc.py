@@ -5,8 +5,8 @@ import gc
 import sys
 
 sys.path.insert(0, ".")
+from boards.firmware import Firmware  # noqa: E402
 from boards.hal import VirtualHal  # noqa: E402
-from boards.main import Firmware  # noqa: E402
 from controller import link as L  # noqa: E402
 from controller.cobs import Framer  # noqa: E402
 from controller.crc16 import crc16  # noqa: E402

@@ -1,9 +1,9 @@
-# The firmware's hardware layer (boards/hal.py) on CPython against a stand-in `machine` module:
-# ADC scaling through dividers, current sensors, the NTC table and the multiplexer, PWM duty,
-# active-low outputs, the safe state and the watchdog.
+# The firmware's hardware layer (boards/hal.py, boards/hal_machine.py) on CPython against a
+# stand-in `machine` module: ADC scaling through dividers, current sensors, the NTC table and
+# the multiplexer, PWM duty, active-low outputs, the safe state and the watchdog.
 import pytest
 
-from boards import board, hal
+from boards import board, hal, hal_machine
 from controller.signals import DUTY_MAX, Commands, Measurements
 
 
@@ -98,7 +98,7 @@ class FakeTime:
 
 @pytest.fixture(autouse=True)
 def fake_time(monkeypatch):
-    monkeypatch.setattr(hal, "time", FakeTime)
+    monkeypatch.setattr(hal_machine, "time", FakeTime)
 
 
 def make(name):
@@ -108,7 +108,7 @@ def make(name):
     if b.hw["mux"]:
         mach.mux_common = (b.hw["mux"]["common"],)
         mach.mux_select = tuple(b.hw["mux"]["select"])
-    return b, mach, hal.MachineHal(b.hw, mach)
+    return b, mach, hal_machine.MachineHal(b.hw, mach)
 
 
 def test_pico_readings_through_dividers_sensors_ntc_and_mux():
@@ -162,7 +162,7 @@ def test_active_low_outputs_are_inverted(tmp_path):
     p.write_text(json.dumps(doc))
     b = board.load(str(p))
     mach = FakeMachine()
-    h = hal.MachineHal(b.hw, mach)
+    h = hal_machine.MachineHal(b.hw, mach)
     assert mach.pwms[10].d == 65535 and mach.pins[15].v == 1  # off, in active-low terms
     c = Commands()
     c.dump_duty = DUTY_MAX
