@@ -2,6 +2,8 @@
 # controller.link calls publish() at import, so host code keeps writing L.MEAS_FMT, L.T_TELEM.
 # The struct formats are the layout spec (docs/link.md); the board packs the same fields by
 # hand. The constants stay defined once, in link.py, where the board keeps them private.
+from controller import host_names
+
 
 HELLO_FMT = "<BH"  # proto, nonce
 HELLO_R_FMT = "<BH8s8sBHHH16s"  # proto, nonce, fw hash, profile hash, mode, period_ms,
@@ -26,8 +28,4 @@ PRIVATE = ("PROTO", "T_HELLO", "T_HELLO_R", "T_TELEM", "MAX_PAYLOAD", "TELEM_LEN
 def publish(ns):
     """Add the layout, and link.py's private constants under their public names, to the
     namespace ns (link.py's globals)."""
-    g = globals()
-    for name in LAYOUT:
-        ns[name] = g[name]
-    for name in PRIVATE:
-        ns[name] = ns["_" + name]
+    host_names.publish(ns, globals(), LAYOUT, PRIVATE)

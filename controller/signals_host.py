@@ -3,6 +3,8 @@
 # signals.STAGE_NAMES, signals.FAULT_NAMES and signals.MAX_CELL_TAPS (on the board these would
 # be module-dict entries, RAM the tick never reads). controller/replay.py, which also runs on
 # the unix port, imports the names from here directly.
+from controller import host_names
+
 
 STAGE_NAMES = ("blocked", "bulk", "absorption", "float", "equalize")  # index: ST_* code
 FAULT_NAMES = (  # index i: fault bit 1 << i (F_*)
@@ -18,8 +20,4 @@ PRIVATE = ("MAX_CELL_TAPS",)
 def publish(ns):
     """Add the names, and signals.py's private constants under their public names, to the
     namespace ns (signals.py's globals)."""
-    g = globals()
-    for name in NAMES:
-        ns[name] = g[name]
-    for name in PRIVATE:
-        ns[name] = ns["_" + name]
+    host_names.publish(ns, globals(), NAMES, PRIVATE)
