@@ -20,7 +20,7 @@ from controller.leadacid import LeadAcidCharger
 from controller.mppt import HillClimb
 from controller.overvolt import OverVoltGuard
 from controller.signals import (
-    F_BATT_SENSOR, F_BUS_SENSOR, F_CAP_SENSOR, F_OVP, F_OVP_LOCKOUT, F_USB_SENSOR,
+    DUTY_MAX, F_BATT_SENSOR, F_BUS_SENSOR, F_CAP_SENSOR, F_OVP, F_OVP_LOCKOUT, F_USB_SENSOR,
     ST_BLOCKED, Commands, Measurements,
 )
 from controller.supercap import CapClamp
@@ -49,6 +49,7 @@ class Supervisor:
         self.dt_max_ms = _DT_MAX_PERIODS * p.period_ms
         self.bus_lie = 0  # 1 after the bus reading contradicted a running converter, until
         # it reads above the battery and the bank again (a stuck-low bus sensor)
+        self.lie_mv = 0  # the bus reading when it last contradicted a converter, mV
 
     @micropython.native
     def tick(self, now_ms):
@@ -90,6 +91,10 @@ class Supervisor:
         if ovp.locked:
             fault |= F_OVP_LOCKOUT
         dump = ovp.dump  # full while latched, stepping down after
+        if self.bus_lie:
+            # the bus reading is known false and the safe state takes every load off the
+            # source: the dump load holds it instead (an unloaded generator rises to its clamp)
+            dump = DUTY_MAX
 
         if fault:
             c.dump_duty = dump
@@ -164,20 +169,24 @@ class Supervisor:
         below the battery (or bank) while that converter runs and current flows is wrong.
         Latched until the bus reads above both stores again (a stuck-low bus sensor would
         otherwise let the converters restart every other tick), or until no current flows into
-        either store (then a low bus contradicts nothing: a source that stopped, read once with
-        a lagging current sample, must not keep the battery's loads off)."""
+        either store and the reading has moved from where it lied (then a low bus contradicts
+        nothing: a source that stopped, read once with a lagging current sample, must not keep
+        the battery's loads off; a stuck sensor reads the same value on and on)."""
         m = self.m
         c = self.c
         p = self.p
         b = m.bus_mv + _XCHK_MV
         # only plausible readings may contradict the bus: an implausible one is its own fault
-        if (c.batt_duty and _XCHK_MA < m.batt_ma <= p.batt_fs_ma
-                and b < m.batt_mv <= p.batt_fs_mv):
+        bus = m.bus_mv
+        if ((c.batt_duty and _XCHK_MA < m.batt_ma <= p.batt_fs_ma
+             and b < m.batt_mv <= p.batt_fs_mv)
+                or (c.cap_duty and _XCHK_MA < m.cap_ma <= p.batt_fs_ma
+                    and b < m.cap_mv <= p.cap_fs_mv)):
             self.bus_lie = 1
-        elif c.cap_duty and _XCHK_MA < m.cap_ma <= p.batt_fs_ma and b < m.cap_mv <= p.cap_fs_mv:
-            self.bus_lie = 1
-        elif self.bus_lie and ((m.bus_mv > m.batt_mv + _XCHK_MV and m.bus_mv > m.cap_mv + _XCHK_MV)
-                               or (m.batt_ma <= _XCHK_MA and m.cap_ma <= _XCHK_MA)):
+            self.lie_mv = bus
+        elif self.bus_lie and ((bus > m.batt_mv + _XCHK_MV and bus > m.cap_mv + _XCHK_MV)
+                               or (m.batt_ma <= _XCHK_MA and m.cap_ma <= _XCHK_MA
+                                   and bus != self.lie_mv)):
             self.bus_lie = 0
         return self.bus_lie
 
