@@ -106,7 +106,7 @@ class Limits:
         """cells x min(V_stage + coeff x (T - T_ref), cap), T clamped to the charging window."""
         key = (stage, temp_dc)
         if key not in self._ceil:
-            t_dc = min(max(F(temp_dc), self.tmin_dc), self.tmax_dc)
+            t_dc = F(min(max(F(temp_dc), self.tmin_dc), self.tmax_dc))  # (an int edge: still exact)
             per_cell = self.cell_mv[stage] + self.coeff * (t_dc / 10 - self.ref_c)
             self._ceil[key] = exact(self.cells * min(per_cell, CAP_CELL_PER_CELL[stage]))
         return self._ceil[key]
