@@ -284,7 +284,7 @@ def _components(g):
         g.scale("converters.%s.r_out_ohm" % conv, 0.7, 1.5)
         g.scale("converters.%s.efficiency" % conv, 0.95, 1.03)
     g.scale("supercap.cell_f", 0.8, 1.2)
-    g.put("supercap.cap_spread_pct", g.u(0.0, 5.0), 2)  # the 10 % clamp derate covers this
+    g.put("supercap.cap_spread_pct", g.u(0.0, 3.0), 2)  # 10 % derate: > 3 std for 6 cells
     g.scale("supercap.esr_mohm", 0.7, 2.0)
     g.put("supercap.leak_spread_pct", g.u(0.0, 60.0), 1)
     # sensor chains: within the board's stated gain tolerance (the schema default, 0.5 %)

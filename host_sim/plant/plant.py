@@ -130,6 +130,7 @@ class Plant:
         self.cap_v = self.bank.v_sum
         self.loads_w = 0.0
         self.dump_w = 0.0
+        self._loads_last = (0.0, 0.0, 0.0)  # last period's battery, supercap and dump duties
         self.p_in_w = 0.0
         self.p_elec_w = 0.0
         self.surges = []  # active bus surges: (t0, t1, v, ohm, energy_j or None)
@@ -217,6 +218,15 @@ class Plant:
         fast = self.fast()
         if fast > 1.0:
             h_max /= min(8.0, 1.0 + fast)
+        # a load that steps this period (the dump switched, a converter cut or started): the
+        # rotor's linearised coupling carries last period's slope across the step, so take
+        # that period in finer sub-steps (a controller toggling the dump load every few periods
+        # built a 2.6 % ledger error over 20 s in 20 ms steps)
+        d_dump = g_dump * self.r_dump
+        lb, lc, ld = self._loads_last
+        self._loads_last = (d_b_eff, d_c, d_dump)
+        if abs(d_b_eff - lb) + abs(d_c - lc) + abs(d_dump - ld) > 0.25:
+            h_max = max(h_max / 4.0, self.h_max / 16.0)
         n_sub = int(math.ceil(dt_s / h_max - 1e-9))
         if n_sub < 1:
             n_sub = 1
