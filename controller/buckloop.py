@@ -32,11 +32,23 @@ class BuckLoop:
         self.bus_last_mv = 0
 
     @micropython.native
-    def update(self, out_mv, ceil_mv, out_ma, lim_ma, bus_mv, floor_mv, u_cap_mv):
+    def update(self, out_mv, ceil_mv, out_ma, lim_ma, bus_mv, floor_mv, u_cap_mv, coast=0):
         """One regulation step; returns the new duty. u_cap_mv caps u (for a current-limited
-        path without a current sensor); pass a large value for none."""
+        path without a current sensor); pass a large value for none. coast: 1 lets a running
+        converter that runs out of headroom hold the top duty while it still carries current
+        (the supercap's: a store whose current limit is not a safety limit), 0 stops it."""
         last = self.bus_last_mv
         top_mv = (bus_mv * _DUTY_TOP) // DUTY_MAX  # the most this bus can make at top duty
+        if (coast and self.u_mv and out_mv <= top_mv < out_mv + _HEAD_MV
+                and (lim_ma >> 3) < out_ma <= lim_ma):
+            # Coast: the current falls with the bus instead of stepping to nothing. A converter
+            # that dropped a few amps at once let a soft source's bus jump 5 V within a period
+            # and pushed the battery's converter, set for the lower bus, 10 % over its limit
+            # for two periods. It stops once the bus cannot make the store's voltage.
+            self.u_mv = top_mv
+            self.duty = _DUTY_TOP
+            self.bus_last_mv = bus_mv
+            return _DUTY_TOP
         if top_mv < out_mv + _HEAD_MV or out_ma - lim_ma > lim_ma >> 1:
             # Off: with no headroom at the top duty a buck cannot deliver, and a duty parked
             # high would turn a bus that comes back (a surge, a store unplugged from it) into a

@@ -47,7 +47,7 @@ class CapClamp:
             self.loop.stop()
             return 0
         return self.loop.update(v, clamp - (hyst >> 1), m.cap_ma, p.cap_limit_ma, m.bus_mv,
-                                floor_mv, v + p.cap_headroom_mv)
+                                floor_mv, v + p.cap_headroom_mv, 1)
 
     @micropython.native
     def _balance(self, m):

@@ -141,3 +141,37 @@ def test_a_bus_jump_after_saturating_with_headroom_does_not_jump_the_output():
     for k in range(12):
         d = b.update(12500, 14520, 0, 2400, 20000, 9000, BIG_MV)
         assert out_mv(d, 20000) <= before_mv + (k + 1) * STEP_UP_MV + quantum_mv(20000)
+
+
+def test_a_supercap_loop_out_of_headroom_coasts_at_the_top_duty():
+    """Invariant (buckloop.py, coast): a running supercap converter whose bus sags below its
+    headroom while it still carries current holds the top duty, so its current falls with the
+    bus instead of stepping off (a load step lifts a soft source's bus within a period); it
+    stops once the bus cannot make the store's voltage. The battery's converter (coast 0)
+    stops at once: its current limit is a safety limit."""
+    for coast, want in ((1, buckloop._DUTY_TOP), (0, 0)):
+        b = BuckLoop()
+        for _ in range(40):
+            b.update(13000, 14400, 1500, 2000, 18000, 9000, BIG_MV, coast)
+        assert b.duty > 0
+        # bus 13.9 V: top duty makes 13.2 V, under the store + 0.3 V headroom, current 1.2 A
+        assert b.update(13000, 14400, 1200, 2000, 13900, 9000, BIG_MV, coast) == want
+    b = BuckLoop()
+    for _ in range(40):
+        b.update(13000, 14400, 1500, 2000, 18000, 9000, BIG_MV, 1)
+    assert b.update(13000, 14400, 1200, 2000, 13500, 9000, BIG_MV, 1) == 0  # 12.8 V < store
+    assert b.update(13000, 14400, 100, 2000, 13900, 9000, BIG_MV, 1) == 0  # stopped: stays off
+
+
+def test_regression_crank_cap_out_of_headroom_holds_the_current_limit():
+    """Regression (fuzz seed 23, example 486): a crank's supercap converter ran out of headroom
+    and stepped off carrying current; the bus jumped 15 -> 26 V in two periods and the battery
+    converter, set for the lower bus, went 3.08 A against a 2.64 A limit for two periods."""
+    from pathlib import Path
+
+    from host_sim import runner
+    from host_sim.scenario import load_scenario
+    path = Path(__file__).resolve().parents[1] / "plant" / "regressions" / \
+        "crank_cap_runs_out_of_headroom.json"
+    res = runner.run(load_scenario(str(path)), progress=False)
+    assert res.limits["batt_current"].held, res.limits["batt_current"].as_dict()
