@@ -15,7 +15,7 @@ _STEP_UP_MV = const(60)  # slowest to rise: soft start, and a tiring rider is no
 _STEP_DN_MV = const(2000)  # quick to fall
 _CUT_MV = const(500)  # an overcurrent drops u this far below the output
 _HEAD_MV = const(300)  # top duty x bus below output + this: no headroom, converter off
-_SETTLE_MV = const(300)  # a stopped converter starts only on a bus that moved less than this
+_SETTLE_MV = const(300)  # a stopped converter starts only on a bus that moved no more than this
 _UNDER_MV = const(300)  # u never winds further below the output than this
 
 

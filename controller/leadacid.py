@@ -15,7 +15,7 @@ _TEMP_MIN_PLAUSIBLE_DC = const(-400)  # an open NTC reads colder than this
 _TEMP_MAX_PLAUSIBLE_DC = const(850)  # a shorted NTC reads hotter than this
 _TEMP_HYST_DC = const(10)  # charging resumes 1.0 C inside the window (a noisy sensor at the
 # edge would otherwise switch the charger, and the load on the drive, on and off every tick)
-_REVERSED_MV = const(-200)  # a battery this far negative is connected backwards
+_REVERSED_MV = const(-200)  # a battery further negative than this is connected backwards
 _BIG_MV = const(100000)
 if not MICROPYTHON:  # the host's names for the plausible range (private on the board: no RAM)
     TEMP_MIN_PLAUSIBLE_DC = _TEMP_MIN_PLAUSIBLE_DC

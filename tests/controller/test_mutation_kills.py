@@ -343,3 +343,705 @@ def test_copy_from_copies_every_reading():
     dst.copy_from(src)
     assert [getattr(dst, k) for k in names] == [getattr(src, k) for k in names]
     assert dst.cell_mv[:3] == [2001, 2002, 2003]
+
+
+# === second round (sample at f53f562): survivors of the current controller =====================
+from controller import leadacid as leadacid_mod  # noqa: E402
+from controller.compat import TICKS_MASK  # noqa: E402
+from controller.profile_fields import SCHEMES as SCHEME_NAMES  # noqa: E402
+from controller.signals import (  # noqa: E402
+    DUTY_MAX,
+    F_BATT_ABSENT,
+    F_BATT_OVER,
+    F_CAP_CELL,
+    F_TEMP_SENSOR,
+    F_USB_LINES,
+    ST_EQUALIZE,
+)
+from controller.usbport import MATCH_NAMES, M_NONE, M_SHORT_1V2, UsbPort, classify  # noqa: E402
+
+SMALL_INT = 2 ** 30  # GUIDE §2: every value in the tick stays within +/-2**30
+
+
+# --- supervisor ----------------------------------------------------------------------------------
+def test_while_the_bus_reading_is_held_false_the_dump_load_holds_the_bus():
+    """Invariant (supervisor.py, and commit 040711f): while the cross-check holds the bus
+    reading false, the safe state takes every load off the source, so the dump load takes it
+    (full duty) instead of leaving an unloaded generator to rise to its clamp."""
+    b = running()
+    c = b.run(1, bus_mv=12000, cap_ma=0)  # 0.8 V under a battery taking 1 A: a lie
+    assert c.fault & F_BUS_SENSOR and c.dump_duty == DUTY_MAX
+    c = b.run(1, bus_mv=15000)  # reads above both stores again: released, no dump
+    assert c.fault == 0 and c.dump_duty == 0
+
+
+def test_the_bus_latch_needs_the_bus_above_the_stores_while_current_flows():
+    """Invariant (supervisor._bus_contradicted): while current still flows into a store the
+    latch holds until the bus reads above both stores again; a reading that rose to within the
+    0.3 V sensor allowance under the battery (no new contradiction) does not release it."""
+    b = running()
+    assert b.run(1, bus_mv=12000, cap_ma=0).fault & F_BUS_SENSOR
+    c = b.run(3, bus_mv=12800 - 200, batt_ma=1000, cap_ma=0)  # under the battery, 1 A flowing
+    assert c.fault & F_BUS_SENSOR
+    c = b.run(1, bus_mv=15000)
+    assert not c.fault & F_BUS_SENSOR
+
+
+def test_a_port_line_fault_reaches_the_commands():
+    """Invariant (signals.F_USB_LINES, usbport.py): once the 5 V converter has run the
+    debounce time with lines that match no configured scheme, the port check has failed and
+    the tick reports F_USB_LINES (the port stays open)."""
+    b = running()
+    c = b.run(1 + b.p.usb_debounce_ms // b.p.period_ms, usb_dp_mv=600, usb_dm_mv=600)
+    assert c.fault & F_USB_LINES and c.usb_on == 0 and c.usb_conv == 1
+    c = b.run(1, usb_dp_mv=2686, usb_dm_mv=2686)  # matching again: no fault in that tick
+    assert c.fault == 0
+
+
+def test_the_safe_state_reports_no_line_match():
+    """Invariant (usbport.block, supervisor fault path): a fault blocks the port, whose match is
+    then none; the Commands report that, not the match of the tick before the fault."""
+    b = running()
+    assert b.c.usb_match == M_DIV_2V7_2V7
+    c = b.run(1, bus_mv=-3000)  # an implausible bus reading: the safe state
+    assert c.fault & F_BUS_SENSOR and c.usb_match == M_NONE
+
+
+def test_the_tick_counter_never_leaves_the_small_int_range():
+    """Invariant (supervisor.py ticks, GUIDE §2): the tick counter stays under 2**30 at every
+    tick, the tick of the wrap included (not only after it)."""
+    b = running()
+    b.sup.ticks = TICKS_MASK - 3  # white box: 2**30 ticks is too many to run
+    for _ in range(8):
+        b.run(1)
+        assert 0 < b.sup.ticks < SMALL_INT
+
+
+def test_the_first_tick_counts_no_time_at_one_ms_resolution():
+    """Invariant (supervisor.py): the first tick counts no elapsed time whatever the clock
+    reads. With a 10 ms debounce (the profile's least) and ticks 1 ms apart, the port closes
+    on the tick 10 ms after the first, not a tick earlier."""
+    p = build(doc_with(usb__scheme="div_2v7_2v7", usb__debounce_ms=10, control__period_ms=5))
+    b = Bench(p, start_ms=123457, bus_mv=15000, usb_vbus_mv=5000, usb_dp_mv=2686,
+              usb_dm_mv=2686)
+    ons = [b.run(1, dt_ms=1).usb_on for _ in range(14)]
+    assert ons.index(1) == 10
+
+
+# --- USB classifier: scheme codes and window edges ----------------------------------------------
+def _scheme_lines(name, vbus_mv=5000):
+    """A port's data lines as check-values.md gives them (divider arithmetic, E96 values, or
+    the DCP probe level, BC1.2 §1.4.2), at vbus_mv."""
+    div = {"div_2v0_2v7": (LEVEL_20_DIV, LEVEL_27_DIV), "div_2v7_2v0": (LEVEL_27_DIV, LEVEL_20_DIV),
+           "div_2v7_2v7": (LEVEL_27_DIV, LEVEL_27_DIV), "short_1v2": (LEVEL_12_DIV, LEVEL_12_DIV)}
+    if name == "dcp":
+        return 600, 580
+    (t1, b1), (t2, b2) = div[name]
+    return round(vbus_mv * b1 / (t1 + b1)), round(vbus_mv * b2 / (t2 + b2))
+
+
+LEVEL_20_DIV = (75, 49.9)  # check-values.md divider arithmetic: 1.998 V at 5.00 V
+LEVEL_27_DIV = (43, 49.9)  # 2.686 V
+LEVEL_12_DIV = (100, 31.6)  # 1.201 V
+
+
+@pytest.mark.parametrize("scheme", SCHEME_NAMES)
+def test_a_port_built_for_each_scheme_closes_on_its_own_lines(scheme):
+    """Invariant (usbport.py, docs/profile.md usb.scheme): a port configured for a scheme
+    closes on that scheme's lines after the debounce, and reports the scheme by its name
+    (the match code names the scheme the profile asked for)."""
+    p = build(doc_with(usb__scheme=scheme, usb__debounce_ms=100))
+    dp, dm = _scheme_lines(scheme)
+    b = Bench(p, bus_mv=15000, usb_vbus_mv=5000, usb_dp_mv=dp, usb_dm_mv=dm)
+    c = b.run(1 + 100 // p.period_ms + 1)
+    if scheme == "dcp":  # the probe is off once the port is on: the lines fall to 0 V
+        c = b.run(2, usb_dp_mv=0, usb_dm_mv=0)
+    assert c.usb_on == 1 and MATCH_NAMES[c.usb_match] == scheme and c.fault == 0
+
+
+# (scheme, which line, level mV at 5.00 V): every window the classifier checks
+_WINDOWS = [("div_2v0_2v7", 0, 2000), ("div_2v0_2v7", 1, 2700),
+            ("div_2v7_2v0", 0, 2700), ("div_2v7_2v0", 1, 2000),
+            ("div_2v7_2v7", 0, 2700), ("div_2v7_2v7", 1, 2700),
+            ("short_1v2", 0, 1200), ("short_1v2", 1, 1200)]
+
+
+@pytest.mark.parametrize("scheme, line, level_mv", _WINDOWS)
+@pytest.mark.parametrize("tol_pct", [8, 14])
+def test_every_level_window_is_closed_at_both_ends(scheme, line, level_mv, tol_pct):
+    """Invariant (usbport.classify docstring; docs/profile.md line_tolerance_pct): a level L
+    matches within L x tol_pct / 100 around L at VBUS 5.00 V, ends included, on either line of
+    every scheme; one mV outside either end it does not. Levels 2.0, 2.7, 1.2 V: check-values.md
+    data-line schemes (common practice)."""
+    want = SCHEME_NAMES.index(scheme) + 1
+    nominal = {"div_2v0_2v7": (2000, 2700), "div_2v7_2v0": (2700, 2000),
+               "div_2v7_2v7": (2700, 2700), "short_1v2": (1200, 1200)}[scheme]
+    w = level_mv * tol_pct // 100
+    for v, inside in ((level_mv - w, True), (level_mv + w, True),
+                      (level_mv - w - 1, False), (level_mv + w + 1, False)):
+        lines = list(nominal)
+        lines[line] = v
+        got = classify(lines[0], lines[1], 5000, 0, tol_pct, 300)  # short_1v2: 300 mV shorted
+        assert (got == want) == inside, (v, got)
+
+
+@pytest.mark.parametrize("short_mv", [10, 100, 300])
+def test_lines_count_as_shorted_up_to_the_tolerance_either_way(short_mv):
+    """Invariant (docs/profile.md short_tolerance_mv: the largest D+/D- difference that still
+    counts as shorted): a difference of exactly +-short_tolerance is shorted whichever line is
+    higher, one mV more is not. Checked on the DCP probe (BC1.2 §1.4.7: D+ shorted to D-;
+    V_DP_SRC 0.5-0.7 V §1.4.2; D- above V_DAT_REF's 0.4 V top §1.4.4)."""
+    dp = 650 if short_mv < 200 else 700
+    for d, shorted in ((short_mv, True), (-short_mv, True), (short_mv + 1, False),
+                       (-short_mv - 1, False)):
+        dm = dp - d
+        if dm <= 400:
+            continue  # D- must stay above V_DAT_REF's top for a DCP whatever the short
+        assert (classify(dp, dm, 5000, 1, 8, short_mv) == M_DCP) == shorted, (d, dm)
+    # the 1.2 V biased short, probe off: both lines in the 1.2 V window
+    for d, shorted in ((short_mv, True), (-short_mv, True), (short_mv + 1, False),
+                       (-short_mv - 1, False)):
+        got = classify(1200 + d // 2, 1200 + d // 2 - d, 5000, 0, 14, short_mv)
+        assert (got == M_SHORT_1V2) == shorted, d
+
+
+def test_the_probe_is_never_sourced_with_the_converter_off():
+    """Invariant (usbport.py: probe = want DCP, converter running, port not yet on): the D+
+    probe is part of the port check of a running converter. When an implausible line reading
+    blocks the port (converter off), the probe command goes off in the same tick."""
+    b = Bench(build(doc_with(usb__scheme="dcp", usb__debounce_ms=100)), usb_vbus_mv=5000,
+              usb_dp_mv=600, usb_dm_mv=600)
+    c = b.run(1)
+    assert c.usb_probe == 1 and c.usb_conv == 1
+    c = b.run(1, usb_dp_mv=b.p.line_fs_mv + 1)  # D+ above the line's full scale
+    assert c.fault & F_USB_SENSOR and c.usb_conv == 0 and c.usb_probe == 0
+
+
+def test_the_line_fault_waits_the_debounce_from_the_converter_start():
+    """Invariant (usbport.py): a line fault only once the converter has run the debounce time
+    (not while it starts), timed from its start: with 1 ms steps and a 250 ms debounce, no
+    fault before 250 ms of running are counted, a fault at 250 ms (the starting tick counts its
+    1 ms like every tick); a converter stopped (by a low bus, or blocked by a fault) and
+    started again times from its new start."""
+    port = UsbPort(build(doc_with(usb__scheme="div_2v7_2v7")))
+    m = Measurements()
+    m.usb_vbus_mv, m.usb_dp_mv, m.usb_dm_mv = 5000, 600, 600  # lines match nothing
+    for stop in ("bus", "block", "bus", "block"):
+        if stop == "bus":
+            m.bus_mv = 3000  # converter off
+            port.update(m, 1)
+            assert port.conv == 0 and port.fault == 0
+        else:
+            port.block()  # the supervisor's fault path
+        m.bus_mv = 15000
+        faults = []
+        for _ in range(252):
+            port.update(m, 1)
+            faults.append(port.fault)
+        assert faults.index(F_USB_LINES) == 249  # the 250th tick since the start: 250 ms
+
+
+def test_after_a_fault_the_port_restarts_as_after_a_stop():
+    """Invariant (usbport.block): a fault leaves the port as a stopped converter does. After
+    a bus-sensor glitch the port closes on the same tick, counted from the restart, as after
+    the converter was stopped by a low bus (both: the lines matched throughout)."""
+    def closes_after(stop):
+        b = running(usb__debounce_ms=500)
+        assert b.run(20).usb_on == 1
+        c = b.run(1, batt_ma=0, cap_ma=0, **stop)  # no current: no cross-check
+        assert c.usb_conv == 0 and bool(c.fault) == (stop["bus_mv"] < 0)
+        return [b.run(1, bus_mv=15000).usb_on for _ in range(14)].index(1)
+
+    low = closes_after({"bus_mv": 3000})  # under usb bus_min - hysteresis: converter off
+    glitch = closes_after({"bus_mv": -3000})  # implausible: the safe state
+    assert low == glitch == 500 // 50 - 1  # the restart tick counts its period
+
+
+def test_the_converter_run_time_stays_a_small_int():
+    """Invariant (usbport.py conv_ms: capped at the debounce time; GUIDE §2 small ints): the
+    converter's run time stops counting at the debounce time, so after 2**30 ms of running
+    (12.4 days) it is still a small int."""
+    p = build(doc_with(usb__scheme="div_2v7_2v7", control__period_ms=1000))
+    port = UsbPort(p)
+    m = Measurements()
+    m.bus_mv, m.usb_vbus_mv, m.usb_dp_mv, m.usb_dm_mv = 15000, 5000, 600, 600  # unmatched
+    dt_ms = 4 * p.period_ms  # the largest step the supervisor passes
+    for _ in range(SMALL_INT // dt_ms + 10):
+        port.update(m, dt_ms)
+    assert port.conv == 1 and port.fault == F_USB_LINES and 0 <= port.conv_ms < SMALL_INT
+
+
+# --- leadacid: stage timers, restart, edges -----------------------------------------------------
+def charger(**kw):
+    """A LeadAcidCharger on its own, its Measurements at 25 C with a bus of 18 V."""
+    p = build(doc_with(**kw))
+    m = Measurements()
+    m.bus_mv, m.batt_temp_dc = 18000, 250
+    return p, LeadAcidCharger(p), m
+
+
+def tick(ch, m, dt_ms, n=1, **fields):
+    for k, v in fields.items():
+        setattr(m, k, v)
+    for _ in range(n):
+        ch.update(m, dt_ms, 9000)
+    return ch.stage
+
+
+def test_each_stage_hold_is_timed_from_zero_every_time_the_stage_is_entered():
+    """Invariant (docs/profile.md battery: tail_hold_s "held this long at voltage",
+    rebulk_hold_s "for this long"): a hold of 1 s is not over after 999 ms, on the first pass
+    through the stages and on the second (a timer left over from the last visit, or started
+    at 1 ms, would end it early); the re-bulk hold restarts when the voltage recovers.
+    AGM default: absorption 14.52 V, tail 0.24 A, re-bulk below 12.60 V."""
+    p, ch, m = charger(battery__tail_hold_s=1, battery__rebulk_hold_s=1)
+    for _ in range(2):
+        assert tick(ch, m, 333, batt_mv=14500, batt_ma=1000) == ST_ABSORPTION  # at voltage
+        assert tick(ch, m, 333, 3, batt_ma=200) == ST_ABSORPTION  # 999 ms at the tail
+        assert tick(ch, m, 333, batt_ma=200) == ST_FLOAT
+        assert tick(ch, m, 333, 2, batt_mv=12500, batt_ma=0) == ST_FLOAT  # 666 ms under
+        assert tick(ch, m, 333, batt_mv=13000) == ST_FLOAT  # recovered: the hold restarts
+        assert tick(ch, m, 333, 3, batt_mv=12500) == ST_FLOAT  # 999 ms under
+        assert tick(ch, m, 333) == ST_BULK
+
+
+def test_after_a_lost_battery_the_charger_restarts_at_bulk_once():
+    """Invariant (leadacid.py lost: "restart at bulk"): after an absent battery the charger
+    restarts at bulk once and then runs its stages: absorption ends on the held tail current
+    as usual (a restart repeated every tick would reset the absorption timers for ever)."""
+    p, ch, m = charger(battery__tail_hold_s=1)
+    tick(ch, m, 50, batt_mv=p.absent_mv - 1000)
+    assert ch.fault & F_BATT_ABSENT
+    assert tick(ch, m, 50, batt_mv=14500, batt_ma=1000) == ST_ABSORPTION  # bulk, at voltage
+    assert tick(ch, m, 50, 19, batt_ma=200) == ST_ABSORPTION  # 0.95 s at the tail ...
+    assert tick(ch, m, 50) == ST_FLOAT  # ... 1 s held: float
+
+
+def test_a_battery_at_the_absent_threshold_counts_as_present():
+    """Invariant (docs/profile.md absent_v_per_cell: "below it the battery counts as absent
+    or open"): at exactly the threshold the battery is present: it is charged, and (with the
+    threshold above the disconnect level, as the allowed ranges permit) its discharge switch
+    closes; one mV below, it is absent."""
+    p, ch, m = charger(battery__absent_v_per_cell=1.75, battery__disconnect_v_per_cell=1.60)
+    assert p.absent_mv > p.lvd_mv
+    for v, absent in ((p.absent_mv, False), (p.absent_mv - 1, True), (p.absent_mv, False)):
+        tick(ch, m, 50, batt_mv=v)
+        assert bool(ch.fault & F_BATT_ABSENT) == absent
+        assert ch.discharge(v) == (0 if absent else 1)
+
+
+def test_after_the_over_voltage_stop_the_converter_restarts_from_the_output():
+    """Invariant (docs/profile.md: a 0.1 V/block margin above the ceiling turns the battery
+    converter off; buckloop.py: a stopped converter starts at the zero-current point): after
+    an over-ceiling tick the next duty is a fresh converter's first duty, not the ramped one."""
+    p, ch, m = charger()
+    tick(ch, m, 50, 40, batt_mv=13000, batt_ma=500)
+    ramped = ch.loop.duty
+    m.batt_mv = 14520 + p.over_margin_mv + 1  # AGM default absorption 14.52 V + margin + 1 mV
+    assert ch.update(m, 50, 9000) == 0 and ch.fault & F_BATT_OVER
+    tick(ch, m, 50, batt_mv=13000)
+    after = ch.loop.duty
+    p2, fresh, m2 = charger()
+    tick(fresh, m2, 50, batt_mv=13000, batt_ma=500)
+    assert after == fresh.loop.duty < ramped
+
+
+@pytest.mark.parametrize("t_dc, sensor_fault", [(-400, False), (-401, True), (850, False),
+                                                (851, True)])
+def test_the_plausible_temperature_range_is_closed(t_dc, sensor_fault):
+    """Invariant (leadacid.py: an open NTC reads colder than -40.0 C, a shorted one hotter than
+    85.0 C): readings at -40.0 C and 85.0 C are plausible (outside the charging window: no
+    charging, F_TEMP_WINDOW); one tenth of a degree beyond is a sensor fault. The host's
+    published names (host_sim's sensor events use them) carry the same range."""
+    assert (leadacid_mod.TEMP_MIN_PLAUSIBLE_DC, leadacid_mod.TEMP_MAX_PLAUSIBLE_DC) == (-400, 850)
+    p, ch, m = charger()
+    tick(ch, m, 50, batt_mv=12800, batt_temp_dc=t_dc)
+    assert ch.fault == (F_TEMP_SENSOR if sensor_fault else F_TEMP_WINDOW)
+
+
+def test_once_resumed_the_window_edges_are_inside_again():
+    """Invariant (leadacid.py too_hot_cold: set on leaving the window, "until 1 C back
+    inside"): once charging has resumed, the window is the window again: its edges are inside
+    (docs/profile.md charge_temp_max_c), no hysteresis left over."""
+    p, ch, m = charger()
+    for t_dc, blocked in ((p.temp_max_dc + 1, True), (p.temp_max_dc - 10, False),
+                          (p.temp_max_dc, False), (p.temp_min_dc, False)):
+        tick(ch, m, 50, batt_mv=12800, batt_ma=500, batt_temp_dc=t_dc)
+        assert bool(ch.blocked) == blocked, t_dc
+
+
+def test_absorption_time_counts_only_with_current_into_the_battery():
+    """Invariant (docs/profile.md absorption_max_minutes: "counts charging time only"):
+    time with the converter running but no current into the battery (0 mA) does not count;
+    time with current in (+ into the battery, signals.py) does, down to 1 mA."""
+    p, ch, m = charger(battery__absorption_max_minutes=10)
+    tick(ch, m, 50, batt_mv=14500, batt_ma=1000)
+    assert tick(ch, m, 50, 3, batt_mv=14400) == ST_ABSORPTION  # under the band: no tail
+    assert ch.loop.duty > 0
+    assert tick(ch, m, p.abs_max_ms, batt_ma=0) == ST_ABSORPTION
+    assert tick(ch, m, 50, batt_ma=1) == ST_ABSORPTION
+    assert tick(ch, m, p.abs_max_ms - 50, batt_ma=1) == ST_FLOAT
+
+
+def test_equalize_time_counts_only_while_its_converter_runs():
+    """Invariant (docs/profile.md equalize_minutes: "time limit, charging time only"): time
+    with the converter off (a bus with no headroom) does not count, even with current read
+    into the battery, nor time with it running and no current in (0 mA); time with it running
+    and current in (+ into the battery, signals.py), down to 1 mA, does."""
+    p, ch, m = charger(battery__chemistry="flooded", battery__capacity_ah=100,
+                       battery__absorption_v_per_cell=2.45, battery__float_v_per_cell=2.23,
+                       battery__equalize_v_per_cell=2.58, battery__equalize_minutes=10,
+                       battery__temp_coeff_mv_per_c_per_cell=-5.0,
+                       battery__charge_limit_a=12.5, battery__tail_current_a=2.0)
+    assert tick(ch, m, 50, batt_mv=14700, batt_ma=5000) == ST_ABSORPTION
+    assert tick(ch, m, 50, eq_req=1) == ST_EQUALIZE
+    assert tick(ch, m, 50, bus_mv=12000, batt_ma=500) == ST_EQUALIZE  # no headroom: off
+    assert ch.loop.duty == 0
+    assert tick(ch, m, p.eq_ms) == ST_EQUALIZE
+    assert tick(ch, m, 50, 2, bus_mv=18000) == ST_EQUALIZE  # starts on a settled bus
+    assert ch.loop.duty > 0
+    assert tick(ch, m, p.eq_ms, batt_ma=0) == ST_EQUALIZE  # running, but nothing flows in
+    # counted so far: the 50 ms of the tick that found the bus low (last period's duty ran,
+    # 0.5 A flowing in); now 1 mA in with the converter running counts
+    assert tick(ch, m, p.eq_ms - 51, batt_ma=1) == ST_EQUALIZE
+    assert tick(ch, m, 1) == ST_FLOAT
+
+
+# --- supercap ------------------------------------------------------------------------------------
+def clamp_bench(**kw):
+    p = build(doc_with(**kw))
+    m = Measurements()
+    m.bus_mv = 20000
+    return p, CapClamp(p), m
+
+
+def test_a_fresh_bank_inside_the_band_is_charged_to_the_aim():
+    """Invariant (supercap.py): the bank stops at the clamp and restarts only below clamp -
+    hysteresis after it was reached; one that never reached the clamp, sitting under the aim
+    (half the hysteresis below the clamp), is charged: its converter's u rises above it."""
+    p, k, m = clamp_bench()
+    m.cap_mv = p.cap_clamp_mv - (3 * p.cap_hyst_mv) // 4  # in the band, under the aim
+    duties = [k.update(m, 9500) for _ in range(5)]
+    assert all(d > 0 for d in duties) and k.loop.u_mv > m.cap_mv
+
+
+def test_after_the_clamp_stop_the_converter_restarts_from_the_bank():
+    """Invariant (supercap.py stop at the clamp; buckloop.py: a stopped converter starts at the
+    zero-current point): below the band again, the first duty is a fresh converter's."""
+    p, k, m = clamp_bench()
+    m.cap_mv = p.cap_clamp_mv - 1000
+    for _ in range(30):
+        ramped = k.update(m, 9500)
+    m.cap_mv = p.cap_clamp_mv
+    assert k.update(m, 9500) == 0
+    m.cap_mv = p.cap_clamp_mv - p.cap_hyst_mv - 1
+    after = k.update(m, 9500)
+    _, fresh, m2 = clamp_bench()
+    m2.cap_mv = m.cap_mv
+    assert ramped > 0 and after == fresh.update(m2, 9500)
+
+
+def test_no_taps_sensed_no_bleeder_on():
+    """Invariant (supercap.py: a cell above the mean by the threshold gets its bleeder): the
+    bleeders follow this tick's tap readings; with no taps sensed none is on."""
+    p, k, m = clamp_bench(supercap__cell_taps=True)
+    m.cap_mv, m.n_taps = 12160, 6
+    m.cell_mv[:6] = [2000, 2100, 2000, 2000, 2000, 2060]
+    k.update(m, 9500)
+    assert k.bal_mask
+    m.n_taps = 0
+    k.update(m, 9500)
+    assert k.bal_mask == 0
+
+
+def test_a_one_cell_bank_at_its_rating_stops_on_its_tap():
+    """Invariant (supercap.py: any cell at or above its rating stops charging, F_CAP_CELL): a
+    one-cell bank (docs/profile.md supercap.cells 1-16) whose tap reads the rating stops even
+    when the bank reading sits under the clamp."""
+    p, k, m = clamp_bench(supercap__cells=1, supercap__cell_taps=True)
+    m.cap_mv, m.n_taps = p.cap_clamp_mv - 200, 1
+    m.cell_mv[0] = p.cap_cell_rating_mv - 1
+    assert k.update(m, 9500) > 0 and k.fault == 0
+    m.cell_mv[0] = p.cap_cell_rating_mv
+    assert k.update(m, 9500) == 0 and k.fault == F_CAP_CELL
+
+
+# --- overvolt ------------------------------------------------------------------------------------
+from controller.compat import TICKS_PERIOD  # noqa: E402
+from controller.overvolt import OverVoltGuard  # noqa: E402
+
+
+def test_two_trips_a_clock_period_apart_are_not_within_the_window():
+    """Invariant (docs/profile.md bus.trip_window_s, lockout_trips; overvolt.py: a trip that
+    left the window is forgotten before its time aliases): with two trips locking out, a trip
+    2**30 ms (one clock period, 12.4 days) plus 5 s after the first is the only one in its
+    window and does not lock the outputs off."""
+    p = build(doc_with(bus__lockout_trips=2, bus__trip_window_s=60))
+    g = OverVoltGuard(p)
+    t_ms = 1000
+    g.update(p.ovp_trip_mv, 50, t_ms, 0)
+    for _ in range(3):  # latch cleared after the 2 s hold
+        t_ms += 1000
+        g.update(p.ovp_recover_mv - 1000, 1000, t_ms, 0)
+    assert g.tripped == 0
+    step_ms = 1000000  # the guard takes any step; a quiet bus for one clock period
+    while t_ms + step_ms < 1000 + TICKS_PERIOD:
+        t_ms += step_ms
+        g.update(p.ovp_recover_mv - 1000, step_ms, t_ms & TICKS_MASK, 0)
+    t_ms = 1000 + TICKS_PERIOD + 5000
+    g.update(p.ovp_trip_mv, 50, t_ms & TICKS_MASK, 0)
+    assert g.tripped == 1 and g.locked == 0
+
+
+def test_the_hold_restarts_from_zero_when_the_bus_comes_back_over_recovery():
+    """Invariant (docs/profile.md ovp_recover_v: the latch clears after the bus stays below it
+    for the hold time): the hold must be one unbroken stretch; after the bus came back to the
+    recovery level, 1999 ms below it do not clear a 2 s hold, 2000 ms do."""
+    p = build(doc_with())
+    g = OverVoltGuard(p)
+    g.update(p.ovp_trip_mv, 50, 0, 0)
+    g.update(p.ovp_recover_mv - 1000, 1500, 1500, 0)
+    g.update(p.ovp_recover_mv, 50, 1550, 0)  # at recovery: not below it
+    g.update(p.ovp_recover_mv - 1000, p.ovp_hold_ms - 1, 3549, 0)
+    assert g.tripped == 1
+    g.update(p.ovp_recover_mv - 1000, 1, 3550, 0)
+    assert g.tripped == 0
+
+
+def test_the_soft_zone_dump_is_in_proportion_from_the_first_mv():
+    """Invariant (docs/profile.md ovp_recover_v, DEVELOPERS.md): between recovery and the trip
+    the dump load comes in in proportion to the bus over recovery (none at recovery, full at
+    the trip), at once: 1 mV over recovery already asks for its share of a 3 V zone."""
+    p = build(doc_with())  # recovery 21 V, trip 24 V
+    span_mv = p.ovp_trip_mv - p.ovp_recover_mv
+    for over_mv in (0, 1, span_mv // 2, span_mv - 1):
+        g = OverVoltGuard(p)
+        g.update(p.ovp_recover_mv + over_mv, 50, 0, 0)
+        assert g.dump == over_mv * DUTY_MAX // span_mv and g.tripped == 0
+
+
+# --- buckloop ------------------------------------------------------------------------------------
+def test_a_converter_from_off_at_its_ceiling_delivers_nothing():
+    """Invariant (buckloop.py: at or above the ceiling the output never rises; the duty must
+    not rise either): a converter that is off (fresh, or switched off for want of headroom)
+    and finds its store at the ceiling stays at duty 0."""
+    loop = BuckLoop()
+    assert loop.update(14400, 14400, 0, 1000, 20000, 9000, 100000) == 0
+    loop = BuckLoop()
+    for _ in range(10):
+        loop.update(13000, 14400, 0, 1000, 20000, 9000, 100000)
+    assert loop.duty > 0
+    assert loop.update(13000, 14400, 0, 1000, 13000, 9000, 100000) == 0  # no headroom: off
+    assert loop.update(14400, 14400, 0, 1000, 13000, 9000, 100000) == 0  # bus settled, at ceiling
+    assert loop.update(14400, 14400, 0, 1000, 20000, 9000, 100000) == 0  # a bus jump: waits
+    assert loop.update(14400, 14400, 0, 1000, 20000, 9000, 100000) == 0  # settled: still 0
+
+
+def test_an_overcurrent_cut_puts_u_below_the_output_from_a_high_duty():
+    """Invariant (DEVELOPERS.md, buckloop.py): 3 % over the current limit u drops below the
+    zero-current point (the output voltage) at once, also when last period's duty made more
+    than the output from this bus (9000 x 15 V = 13.5 V over a 12.8 V store)."""
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 13500, 9000, 15000
+    d = loop.update(12800, 14400, 1100, 1000, 15000, 9000, 100000)  # 10 % over the limit
+    assert loop.u_mv < 12800 and d <= 6750
+
+
+def test_after_an_off_for_no_headroom_the_start_waits_for_a_settled_bus():
+    """Invariant (DEVELOPERS.md buck loop: the converter is off when even the top duty cannot
+    reach the store, and it starts only on a bus that held still over the last period): a bus
+    that jumps back up (a surge) does not start it in the same period; the next one, the bus
+    held, does, from the zero-current point (u = the store's voltage)."""
+    loop = BuckLoop()
+    for _ in range(10):
+        loop.update(13000, 14400, 0, 1000, 20000, 9000, 100000)
+    assert loop.update(13000, 14400, 0, 1000, 13000, 9000, 100000) == 0  # no headroom: off
+    assert loop.update(13000, 14400, 0, 1000, 20000, 9000, 100000) == 0  # jumped 7 V: waits
+    assert loop.update(13000, 14400, 0, 1000, 20000, 9000, 100000) > 0  # held: starts
+    assert 13000 <= loop.u_mv <= 13000 + 60  # from the output, one soft-start step at most
+
+
+def test_the_current_loop_pulls_down_harder_than_it_raises():
+    """Invariant (buckloop.py _KI_DIV / _KI_OVER_DIV: current error / 16 under the limit, / 4
+    above it, so an overcurrent is cut within a period while the rise stays soft): for the same
+    60 mA error about the aim (3 % under a 1 A limit), inside the 3 % cut band, u falls several
+    times as far as it rises."""
+    def u_step(out_ma):
+        loop = BuckLoop()
+        loop.u_mv, loop.duty, loop.bus_last_mv = 13000, 6500, 20000  # settled: 6500 x 20 V
+        loop.update(12800, 16000, out_ma, 1000, 20000, 9000, 100000)
+        return loop.u_mv - 13000
+
+    aim_ma = 1000 - (1000 >> 5)
+    rise, fall = u_step(aim_ma - 60), -u_step(aim_ma + 60)
+    assert 0 < rise and 2 * rise < fall
+
+
+def test_after_a_cut_no_current_even_if_the_bus_rises_twelve_percent():
+    """Invariant (buckloop.py: after a cut the duty is set for no current even if the bus
+    rises 12 % within the period): the cut's duty times a bus 12 % higher makes no more than
+    the store's voltage, also when the quarter-duty cut alone would allow more."""
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 19000, 9500, 20000  # a store reconnected under a high u
+    d = loop.update(12800, 14400, 1100, 1000, 20000, 9000, 100000)  # 10 % over: a cut
+    assert d * (20000 * 112 // 100) // DUTY_MAX <= 12800
+
+
+@pytest.mark.parametrize("over_pct10, cut", [(0, False), (20, False), (30, False), (32, True),
+                                             (100, True)])
+def test_the_cut_starts_three_percent_over_the_limit(over_pct10, cut):
+    """Invariant (DEVELOPERS.md: 3 % over the current limit it drops below the zero-current
+    point at once; below that the loop regulates and u stays within 0.3 V under the output,
+    buckloop.py _UNDER_MV). over_pct10: the current over a 2 A limit, in 0.1 %."""
+    lim_ma = 2000
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 13000, 6500, 20000
+    loop.update(12800, 14400, lim_ma + lim_ma * over_pct10 // 1000, lim_ma, 20000, 9000, 100000)
+    assert (loop.u_mv < 12800 - 300) == cut
+
+
+@pytest.mark.parametrize("over_pct, off", [(40, False), (50, False), (51, True), (80, True)])
+def test_half_again_over_the_limit_the_converter_is_off(over_pct, off):
+    """Invariant (buckloop.py: half again over the limit is not a loop error but a source or
+    store that moved: off, duty 0, and a start only once the bus has settled); below that it is
+    a cut (duty down by a quarter), not off."""
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 13000, 6500, 20000
+    d = loop.update(12800, 14400, 1000 + 10 * over_pct, 1000, 20000, 9000, 100000)
+    assert (d == 0 and loop.u_mv == 0) == off
+    assert d <= 6500 - 6500 // 4
+
+
+# --- signals and the USB logic bound -----------------------------------------------------------
+def test_d_plus_at_the_bottom_of_v_lgc_is_no_dcp():
+    """Invariant (usbport.py, docs/profile.md dcp check): while the port is on the lines must
+    stay below V_LGC's bottom, 0.8 V (BC1.2 §1.4.4: V_LGC 0.8-2.0 V, check-values.md), on
+    either line: D+ at 0.8 V with D- under it is no DCP."""
+    assert classify(800, 799, 5000, 0, 8, 100) == M_NONE
+    assert classify(799, 800, 5000, 0, 8, 100) == M_NONE
+    assert classify(799, 799, 5000, 0, 8, 100) == M_DCP
+
+
+def test_each_fault_is_its_own_bit_named_in_order():
+    """Invariant (signals.py / signals_host.FAULT_NAMES: index i names fault bit 1 << i):
+    every F_* code is one bit, the i-th, so several faults set at once stay apart and the
+    names the host prints (replay, reports) are the right ones."""
+    from controller import signals
+    for i, name in enumerate(signals.FAULT_NAMES):
+        assert getattr(signals, "F_" + name.upper()) == 1 << i, name
+    b = running()  # and a tick's fault word decodes to the fault it met, alone
+    b.sup.m.cell_mv[2] = b.p.cap_cell_rating_mv  # a cell at its rating
+    c = b.run(1)
+    assert [n for i, n in enumerate(signals.FAULT_NAMES) if c.fault >> i & 1] == ["cap_cell"]
+
+
+def test_the_readings_hold_exactly_the_taps_a_profile_may_ask_for():
+    """Invariant (profile_system.py: at most 12 cells with cell_taps, "the board senses 12
+    taps"): Measurements hold 12 tap readings (signals.MAX_CELL_TAPS), no fewer and no more; a
+    13-cell tapped bank is refused at load."""
+    from controller import signals
+    from controller.compat import ConfigError
+    assert signals.MAX_CELL_TAPS == len(Measurements().cell_mv) == 12
+    small = dict(supercap__cell_taps=True, supercap__cell_rating_v=2.3,  # clamp under 21 V
+                 supercap__clamp_derate_pct=30, sensors__cap_full_scale_v=30)
+    build(doc_with(supercap__cells=12, **small))
+    with pytest.raises(ConfigError, match="cell_taps"):
+        build(doc_with(supercap__cells=13, **small))
+
+
+def test_the_soft_zone_dump_is_full_at_the_trip_however_narrow_the_zone():
+    """Invariant (docs/profile.md ovp_recover_v: in the soft zone the dump comes in in
+    proportion, "none here, full at the trip", and lets go by at most 5 % of full per period):
+    with recovery only 1 mV under the trip (the profile allows any recovery below the trip),
+    the bus at the trip asks for the full soft dump, so one period after a 50 ms latch clears
+    the dump is still at 95 %."""
+    p = build(doc_with(bus__ovp_trip_v=24.0, bus__ovp_recover_v=23.999, bus__ovp_hold_ms=50))
+    assert p.ovp_trip_mv - p.ovp_recover_mv == 1
+    g = OverVoltGuard(p)
+    g.update(p.ovp_trip_mv, 50, 0, 0)
+    assert g.tripped == 1 and g.dump == DUTY_MAX
+    g.update(20000, 50, 50, 0)  # 50 ms below recovery: the latch clears
+    assert g.tripped == 0 and g.dump == DUTY_MAX - DUTY_MAX // 20
+
+
+def test_a_stopped_converter_restarts_at_its_ceiling_with_no_duty():
+    """Invariant (buckloop.stop: a stopped converter is idle, duty 0; at or above the ceiling
+    the duty never rises): after stop() (the supervisor's fault path) a store found at its
+    ceiling gets no duty, whatever the duty was before the stop."""
+    loop = BuckLoop()
+    for _ in range(20):
+        loop.update(13000, 14400, 0, 1000, 20000, 9000, 100000)
+    assert loop.duty > 0
+    loop.stop()
+    assert loop.update(14400, 14400, 0, 1000, 20000, 9000, 100000) == 0
+
+
+def test_a_stopped_converter_starts_on_a_bus_that_moved_less_than_settle():
+    """Invariant (buckloop.py _SETTLE_MV: a stopped converter starts only on a bus that moved
+    less than 0.3 V over the last period): a bus that moved 0.2 V has settled; it starts."""
+    loop = BuckLoop()
+    for _ in range(10):
+        loop.update(13000, 14400, 0, 1000, 20000, 9000, 100000)
+    assert loop.update(13000, 14400, 0, 1000, 13000, 9000, 100000) == 0  # no headroom: off
+    assert loop.update(13000, 14400, 0, 1000, 19800, 9000, 100000) == 0  # jumped: waits
+    assert loop.update(13000, 14400, 0, 1000, 20000, 9000, 100000) > 0  # moved 0.2 V: starts
+
+
+def test_at_the_top_duty_u_is_no_higher_than_the_bus_can_make():
+    """Invariant (buckloop.py anti-windup: at the top duty u is no higher than this bus can
+    make, so a bus that jumps later restarts from the output instead of from a wound-up u):
+    a store that keeps asking for more from a 15 V bus never winds u past 95 % of it."""
+    loop = BuckLoop()
+    top_mv = 15000 * 9500 // DUTY_MAX  # buckloop _DUTY_TOP: a buck cannot run at 100 %
+    for _ in range(40):
+        loop.update(13900, 14400, 0, 1000, 15000, 9000, 100000)
+        assert loop.u_mv <= top_mv
+    assert loop.duty == 9500
+
+
+def test_on_a_rising_bus_the_duty_is_set_for_where_the_bus_is_going():
+    """Invariant (DEVELOPERS.md: duty = u / bus, with one period's rise ahead when the bus is
+    rising, so a bus freed of a load does not surge the output): after a 1 V rise the duty,
+    applied to a bus another 1 V higher, makes no more than u."""
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 13000, 8667, 15000  # settled: 8667 x 15 V
+    d = loop.update(12800, 14400, 500, 1000, 16000, 9000, 100000)
+    assert d * 17000 // DUTY_MAX <= loop.u_mv
+    assert d * 16000 // DUTY_MAX < loop.u_mv  # (and so less than u from today's bus)
+
+
+def test_the_current_loop_aims_three_percent_under_the_limit():
+    """Invariant (buckloop.py: aim 3 % under the limit, room for noise): a current 2 % under
+    the limit is above the aim, so with voltage and bus out of the way u does not rise: it
+    falls."""
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 13000, 6500, 20000  # settled: 6500 x 20 V
+    loop.update(12800, 16000, 1960, 2000, 20000, 9000, 100000)
+    assert loop.u_mv < 13000
+
+
+# --- buckloop coast (fe7547e) --------------------------------------------------------------------
+def _coasting_loop():
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 14000, 9000, 16000  # running
+    return loop
+
+
+def test_coast_holds_the_top_duty_up_to_the_limit_and_u_is_what_it_makes():
+    """Invariant (buckloop.update coast: a running converter that runs out of headroom holds
+    the top duty while it still carries current within its limit): at exactly the limit it
+    still coasts, and u is then what the top duty makes from this bus (95 % of 15.5 V), as
+    everywhere at the top duty (anti-windup)."""
+    top_mv = 15500 * 9500 // DUTY_MAX  # 14725: under 14.5 V + 0.3 V of headroom
+    for out_ma in (1000, 2000):
+        loop = _coasting_loop()
+        assert loop.update(14500, 16000, out_ma, 2000, 15500, 9000, 100000, 1) == 9500
+        assert loop.u_mv == top_mv
+
+
+def test_with_headroom_there_is_no_coast():
+    """Invariant (buckloop.py _HEAD_MV: the top duty's output below output + 0.3 V is no
+    headroom): with exactly 0.3 V of headroom (95 % of 16 V = 15.2 V over a 14.9 V store) the
+    converter regulates as usual instead of coasting at the top duty."""
+    loop = _coasting_loop()
+    assert loop.update(14900, 16000, 1000, 2000, 16000, 9000, 100000, 1) < 9500
