@@ -97,8 +97,9 @@ def scenario_docs(draw, max_duration_s=90.0, events=True):
     sc["cap_spread_pct"] = round(draw(st.floats(0.0, 3.0)), 1)
     d = doc["drive"]
     if d["kind"] in ("pedal", "crank"):
-        d["effort"] = round(draw(st.floats(0.3, 1.4)), 2)
-        d["cadence_rpm"] = round(draw(st.floats(30.0, 110.0)), 1)
+        # a rider the dump load can hold at the trip (scenario_gen.py, README known limits)
+        d["effort"] = round(draw(st.floats(0.3, 1.2)), 2)
+        d["cadence_rpm"] = round(draw(st.floats(30.0, 95.0)), 1)
         if draw(st.booleans()):
             d["reversals_s"] = [round(draw(st.floats(1.0, dur - 1.0)), 1)]
     elif d["kind"] == "wind":
