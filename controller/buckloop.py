@@ -40,11 +40,13 @@ class BuckLoop:
         last = self.bus_last_mv
         top_mv = (bus_mv * _DUTY_TOP) // DUTY_MAX  # the most this bus can make at top duty
         if (coast and self.u_mv and out_mv <= top_mv < out_mv + _HEAD_MV
-                and (lim_ma >> 3) < out_ma <= lim_ma):
+                and (lim_ma >> 3) < out_ma <= lim_ma and out_mv < ceil_mv):
             # Coast: the current falls with the bus instead of stepping to nothing. A converter
             # that dropped a few amps at once let a soft source's bus jump 5 V within a period
             # and pushed the battery's converter, set for the lower bus, 10 % over its limit
-            # for two periods. It stops once the bus cannot make the store's voltage.
+            # for two periods. It stops once the bus cannot make the store's voltage; at or over
+            # its aim the store's own taper takes over (coasting there ran a bank into its
+            # clamp at 0.55 A, and the clamp's stop was the step).
             self.u_mv = top_mv
             self.duty = _DUTY_TOP
             self.bus_last_mv = bus_mv
