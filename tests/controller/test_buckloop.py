@@ -175,3 +175,13 @@ def test_regression_crank_cap_out_of_headroom_holds_the_current_limit():
         "crank_cap_runs_out_of_headroom.json"
     res = runner.run(load_scenario(str(path)), progress=False)
     assert res.limits["batt_current"].held, res.limits["batt_current"].as_dict()
+
+
+def test_no_coast_at_or_over_the_aim():
+    """Invariant (buckloop.py, coast): at or over the store's aim the converter does not coast
+    at the top duty (that would run a bank into its clamp at full current); out of headroom
+    there it stops, and its own taper has brought the current down on the way."""
+    b = BuckLoop()
+    for _ in range(40):
+        b.update(13000, 14400, 1500, 2000, 18000, 9000, BIG_MV, 1)
+    assert b.update(14400, 14400, 1200, 2000, 15300, 9000, BIG_MV, 1) == 0
