@@ -30,9 +30,10 @@ EVENT_CHOICES = ("battery_disconnected", "temp_sensor_open", "sensor_stuck", "se
 # open-circuit voltage exceeds the bus limit. Go beyond them deliberately with `sweep`.
 # Likewise the battery current sensor frozen inside the charge limit: the controller would go
 # on raising a current it cannot see (3.2 A against 2.4 seen). Frozen above the limit it is
-# caught (the loop cuts).
+# caught (the loop cuts). And the battery voltage frozen inside its ceiling (13.5 V let a
+# block reach 15.12 V against 15.1); frozen at 0 or above the ceiling it is caught.
 STUCK_VALUES = {  # plausible readings a stuck input freezes at (inside each sensor's range)
-    "batt_v": (0.0, 12.0, 12.8, 13.5, 15.0), "cap_v": (0.0, 5.0, 12.0),
+    "batt_v": (0.0, 15.0), "cap_v": (0.0, 5.0, 12.0),  # battery: not inside its ceiling
     "batt_a": (5.0, 12.0), "usb_vbus": (0.0, 5.0), "src_a": (0.0, 2.0), "cap_a": (0.0, 1.0),
 }
 OPEN_SENSORS = ("batt_v", "bus_v", "cap_v", "batt_a", "usb_vbus", "usb_dp", "usb_dm")  # bus: full only
@@ -427,6 +428,8 @@ def outside_envelope(ev, facts):
         return True
     if k == "sensor_open" and ev.get("sensor") == "batt_a" and ev.get("reads") == "zero":
         return True
+    if k == "sensor_stuck" and ev.get("sensor") == "batt_v" and 1.0 < ev.get("value", 0) < 14.5:
+        return True  # the battery voltage frozen inside its ceiling hides the ceiling
     if k == "sensor_open" and ev.get("sensor") == "bus_v" and ev.get("reads") == "zero":
         return True
     if k == "wrong_divider_resistor" and ev.get("resistor") in ("bus_top", "bus_bottom",
