@@ -34,7 +34,7 @@ EVENT_CHOICES = ("battery_disconnected", "temp_sensor_open", "sensor_stuck", "se
 # block reach 15.12 V against 15.1); frozen at 0 or above the ceiling it is caught.
 STUCK_VALUES = {  # plausible readings a stuck input freezes at (inside each sensor's range)
     "batt_v": (0.0, 15.0), "cap_v": (0.0, 5.0, 12.0),  # battery: not inside its ceiling
-    "batt_a": (5.0, 12.0), "usb_vbus": (0.0, 5.0), "src_a": (0.0, 2.0), "cap_a": (0.0, 1.0),
+    "batt_a": (None,), "usb_vbus": (0.0, 5.0), "src_a": (0.0, 2.0), "cap_a": (0.0, 1.0),
 }
 OPEN_SENSORS = ("batt_v", "bus_v", "cap_v", "batt_a", "usb_vbus", "usb_dp", "usb_dm")  # bus: full only
 WIND_MEAN_MS = (2.0, 9.0)  # the hut's dump load holds about 9 m/s mean with its gusts
@@ -88,6 +88,9 @@ def facts(sc):
         "cap_v0_max": min(p.cap_cell_rating_mv, p.cap_clamp_mv / d["supercap"]["cells"]) / 1000.0,
         "dividers": dividers,
         "trip_v": trip_v,
+        # a battery current reading frozen this high is over the charge limit, inside the range
+        "batt_a_stuck": min(1.5 * p.chg_limit_ma, 0.9 * p.batt_fs_ma) / 1000.0,
+        "chg_limit_a": p.chg_limit_ma / 1000.0,
         "bus_limit_v": lim_v,
     }
 
@@ -371,6 +374,8 @@ def _events(g, dur):
         elif kind == "sensor_stuck":
             ev["sensor"] = g.pick(tuple(STUCK_VALUES))
             ev["value"] = g.pick(STUCK_VALUES[ev["sensor"]])
+            if ev["value"] is None:  # battery current: over the base's own charge limit
+                ev["value"] = _r(facts["batt_a_stuck"])
             undo = {"kind": "sensor_ok", "sensor": ev["sensor"]}
         elif kind == "sensor_open":
             ev["sensor"] = g.pick(OPEN_SENSORS)
@@ -424,7 +429,8 @@ def outside_envelope(ev, facts):
     k = ev.get("kind")
     if k == "sensor_stuck" and ev.get("sensor") == "bus_v":
         return True
-    if k == "sensor_stuck" and ev.get("sensor") == "batt_a" and ev.get("value", 0) < 5.0:
+    if (k == "sensor_stuck" and ev.get("sensor") == "batt_a"
+            and ev.get("value", 0) <= facts["chg_limit_a"]):
         return True
     if k == "sensor_open" and ev.get("sensor") == "batt_a" and ev.get("reads") == "zero":
         return True

@@ -38,11 +38,12 @@ def fault_events(draw, duration_s):
                 # the battery voltage frozen inside its ceiling hides the ceiling (README,
                 # known limits); frozen at 0 or above it, the charger stops
                 ev["value"] = 15.0
-            if ev["sensor"] == "batt_a" and ev["value"] < 5.0:
+            if ev["sensor"] == "batt_a" and ev["value"] < 25.0:
                 # the same gap for the battery current sensor: frozen inside the charge limit
                 # the controller raises a current it cannot see (README, known limits); frozen
-                # above it, the loop cuts
-                ev["value"] = 5.0
+                # above it (25 A: over every built-in's limit, inside the 30 A range), the
+                # loop cuts
+                ev["value"] = 25.0
         elif kind == "sensor_open":
             ev["sensor"] = draw(st.sampled_from(("batt_v", "bus_v", "cap_v", "usb_dp")))
             ev["reads"] = draw(st.sampled_from(("zero", "full")))
