@@ -40,17 +40,27 @@ class BuckLoop:
         last = self.bus_last_mv
         top_mv = (bus_mv * _DUTY_TOP) // DUTY_MAX  # the most this bus can make at top duty
         if (coast and self.u_mv and out_mv <= top_mv < out_mv + _HEAD_MV
-                and (lim_ma >> 3) < out_ma <= lim_ma and out_mv < ceil_mv):
+                and out_ma <= lim_ma
+                and out_ma > (lim_ma >> 3 if out_mv < ceil_mv else lim_ma >> 5)):
             # Coast: the current falls with the bus instead of stepping to nothing. A converter
             # that dropped a few amps at once let a soft source's bus jump 5 V within a period
             # and pushed the battery's converter, set for the lower bus, 10 % over its limit
-            # for two periods. It stops once the bus cannot make the store's voltage; at or over
-            # its aim the store's own taper takes over (coasting there ran a bank into its
-            # clamp at 0.55 A, and the clamp's stop was the step).
-            self.u_mv = top_mv
-            self.duty = _DUTY_TOP
+            # for two periods. It stops once the bus cannot make the store's voltage.
+            u = top_mv
+            d = _DUTY_TOP
+            if out_mv >= ceil_mv:
+                # At or over its aim: taper, halving the drive over the output each period
+                # (holding the top duty ran a bank into its clamp at 0.55 A, and the clamp's
+                # stop was the step; stopping at the aim dropped 0.5 A at once and lifted a
+                # crank's bus 5 V in a period, its battery to 15 % over the limit).
+                u = (self.u_mv + out_mv) >> 1
+                if u > top_mv:
+                    u = top_mv
+                d = (u * DUTY_MAX) // bus_mv
+            self.u_mv = u
+            self.duty = d
             self.bus_last_mv = bus_mv
-            return _DUTY_TOP
+            return d
         if top_mv < out_mv + _HEAD_MV or out_ma - lim_ma > lim_ma >> 1:
             # Off: with no headroom at the top duty a buck cannot deliver, and a duty parked
             # high would turn a bus that comes back (a surge, a store unplugged from it) into a

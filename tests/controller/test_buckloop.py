@@ -177,11 +177,51 @@ def test_regression_crank_cap_out_of_headroom_holds_the_current_limit():
     assert res.limits["batt_current"].held, res.limits["batt_current"].as_dict()
 
 
-def test_no_coast_at_or_over_the_aim():
-    """Invariant (buckloop.py, coast): at or over the store's aim the converter does not coast
-    at the top duty (that would run a bank into its clamp at full current); out of headroom
-    there it stops, and its own taper has brought the current down on the way."""
+def test_at_or_over_the_aim_out_of_headroom_it_tapers_then_stops():
+    """Invariant (buckloop.py, coast): at or over the store's aim, out of headroom while it
+    still carries current, the converter neither holds the top duty (that would run a bank
+    into its clamp at full current) nor stops at once (a 0.5 A step lifted a soft source's bus
+    5 V in a period): each period the drive over the output halves (u = (u + out) / 2, never
+    above what the top duty makes), and it stops once the current is at most lim / 32."""
     b = BuckLoop()
     for _ in range(40):
-        b.update(13000, 14400, 1500, 2000, 18000, 9000, BIG_MV, 1)
-    assert b.update(14400, 14400, 1200, 2000, 15300, 9000, BIG_MV, 1) == 0
+        b.update(14300, 14400, 1500, 2000, 18000, 9000, BIG_MV, 1)
+    bus_mv = 15300  # top duty makes 14.535 V: under the store 14.4 V + 0.3 V headroom
+    top_mv = bus_mv * buckloop._DUTY_TOP // DUTY_MAX
+    # just under the aim it coasts at the top duty
+    assert b.update(14300, 14400, 1200, 2000, bus_mv, 9000, BIG_MV, 1) == buckloop._DUTY_TOP
+    assert b.u_mv == top_mv
+    d = buckloop._DUTY_TOP
+    drive_mv = [top_mv - 14400]
+    for ma in (1200, 600, 300, 120):
+        u_want = (min(b.u_mv, top_mv) + 14400) // 2
+        d_next = b.update(14400, 14400, ma, 2000, bus_mv, 9000, BIG_MV, 1)
+        assert b.u_mv == u_want and d_next == u_want * DUTY_MAX // bus_mv
+        assert d_next < d
+        drive_mv.append(b.u_mv - 14400)
+        d = d_next
+    assert drive_mv == sorted(drive_mv, reverse=True) and drive_mv[-1] >= 0
+    assert d < buckloop._DUTY_TOP
+    # at lim / 32 (62 mA) or less it stops, and stays off
+    assert b.update(14400, 14400, 2000 >> 5, 2000, bus_mv, 9000, BIG_MV, 1) == 0
+    assert b.update(14400, 14400, 0, 2000, bus_mv, 9000, BIG_MV, 1) == 0
+    # the battery's converter (coast 0) does not taper: it stops at once
+    b = BuckLoop()
+    for _ in range(40):
+        b.update(13000, 14400, 1500, 2000, 18000, 9000, BIG_MV, 0)
+    assert b.update(14400, 14400, 1200, 2000, bus_mv, 9000, BIG_MV, 0) == 0
+
+
+def test_regression_crank_cap_at_its_aim_tapers_off():
+    """Regression (fuzz seed 29, example 1842): a crank's supercap reached its aim with no
+    headroom while carrying 0.5 A and stepped off at once; the bus rose 15.3 -> 20.5 V in a
+    period and the battery went to 2.77 A against 2.64 A (the limit plus 10 %) for two
+    periods. Invariant: with the taper the battery current holds its limit."""
+    from pathlib import Path
+
+    from host_sim import runner
+    from host_sim.scenario import load_scenario
+    path = Path(__file__).resolve().parents[1] / "plant" / "regressions" / \
+        "crank_cap_steps_off_at_its_aim.json"
+    res = runner.run(load_scenario(str(path)), progress=False)
+    assert res.limits["batt_current"].held, res.limits["batt_current"].as_dict()
