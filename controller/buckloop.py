@@ -103,7 +103,7 @@ class BuckLoop:
             step = -_STEP_DN_MV
         if out_mv >= ceil_mv and step > 0:
             step = 0  # at or above the ceiling the output never rises
-        cut = out_ma - lim_ma > lim_ma >> 5
+        cut = out_ma - lim_ma > lim_ma >> 5  # more than lim / 32 (3.1 %) over the limit
         if cut:
             u = out_mv - _CUT_MV  # 3 % over the limit: below the zero-current point at once (a
             # store reconnected under a high u, a bus that jumped within the period); ramp again

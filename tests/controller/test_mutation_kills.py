@@ -11,6 +11,8 @@ from controller.leadacid import ceiling_mv
 from controller.leadacid import LeadAcidCharger
 from controller.mppt import HillClimb
 from controller.signals import (
+    F_BATT_ABSENT,
+    F_BATT_REVERSED,
     F_BATT_SENSOR,
     F_BUS_SENSOR,
     F_CAP_SENSOR,
@@ -259,6 +261,55 @@ def test_an_overcurrent_cut_puts_u_below_the_output():
     loop.u_mv, loop.duty, loop.bus_last_mv = 13000, 8000, 15000
     d = loop.update(12800, 14400, 1100, 1000, 15000, 9000, 100000)  # 10 % over the limit
     assert loop.u_mv < 12800 and d <= 6000
+
+
+def _settled(loop):
+    """A settled loop: last period's duty makes u from this bus exactly (5000 x 30 V = 15 V)."""
+    loop.u_mv, loop.duty, loop.bus_last_mv = 15000, 5000, 30000
+    return loop
+
+
+def test_over_its_aim_u_falls_by_a_quarter_of_the_excess():
+    """Invariant (buckloop.py _KI_OVER_DIV, 'made'): between the current aim (lim - lim/32) and
+    the cut, u steps down by a quarter of the excess over the aim, from what last period's duty
+    makes from this bus; at or over the limit no current headroom is added to that. Limit
+    1000 mA, reading 1020 mA: excess 51 mA, step floor(-51 / 4) = -13 mV."""
+    loop = _settled(BuckLoop())
+    loop.update(13000, 14400, 1020, 1000, 30000, 9000, 100000)
+    assert loop.u_mv == 15000 - 13
+
+
+@pytest.mark.parametrize("out_ma, cut", [(1031, False), (1032, True)])
+def test_the_cut_starts_over_a_32nd_of_the_limit(out_ma, cut):
+    """Invariant (buckloop.py): the overcurrent cut acts when the reading is more than lim/32
+    over the limit (31 mA on 1000 mA), not at it; then u goes 0.5 V below the output at once."""
+    loop = _settled(BuckLoop())
+    loop.update(13000, 14400, out_ma, 1000, 30000, 9000, 100000)
+    assert loop.u_mv == (12500 if cut else 15000 + (969 - out_ma) // 4)
+
+
+@pytest.mark.parametrize("bus_mv, starts", [(18300, True), (18301, False), (17700, True),
+                                            (17699, False)])
+def test_a_stopped_loop_starts_on_a_bus_that_moved_no_more_than_0v3(bus_mv, starts):
+    """Invariant (buckloop.py _SETTLE_MV): a stopped converter starts only on a bus that moved
+    no more than 0.3 V since the period it stopped in (exactly 0.3 V starts it)."""
+    loop = BuckLoop()
+    loop.update(12000, 14400, 500, 1000, 18000, 9000, 100000)  # running
+    assert loop.update(12000, 14400, 1600, 1000, 18000, 9000, 100000) == 0  # 60 % over: off
+    d = loop.update(12000, 14400, 0, 1000, bus_mv, 9000, 100000)
+    assert (d > 0) == starts
+
+
+@pytest.mark.parametrize("batt_mv, fault", [(-200, F_BATT_ABSENT), (-201, F_BATT_REVERSED)])
+def test_a_battery_is_reversed_only_below_minus_0v2(batt_mv, fault):
+    """Invariant (leadacid.py _REVERSED_MV): a battery reading further negative than -0.2 V is
+    connected backwards; -0.2 V itself reads as absent (no block, or an open lead)."""
+    p = build(doc_with())
+    ch = LeadAcidCharger(p)
+    m = Measurements()
+    m.batt_mv, m.batt_ma, m.batt_temp_dc, m.bus_mv = batt_mv, 0, 250, 18000
+    assert ch.update(m, p.period_ms, p.floor_mv) == 0
+    assert ch.fault & (F_BATT_ABSENT | F_BATT_REVERSED) == fault
 
 
 # --- mppt --------------------------------------------------------------------------------------
