@@ -16,6 +16,7 @@ import re
 
 import numpy as np
 
+from host_sim import envelope
 from host_sim.scenario import DRIVE_FIELDS, SCHEMA, load_scenario
 from host_sim.plant.sensors import ADC_REF_V, CHANNELS, R_BOTTOM
 
@@ -43,6 +44,9 @@ NET_FAULTS = ("open", "short_to_ground", "lines_shorted", "decade_up", "decade_d
 NET_RESISTORS = ("dp_top", "dp_bottom", "dm_top", "dm_bottom", "between")
 TOL_CHANNELS = ("bus_v", "src_a", "batt_v", "batt_a", "cap_v", "cap_a", "usb_vbus")
 SURGE_MAX_S = 1.0  # longest bus surge drawn, s
+EFFORT_LO, EFFORT_HI = 0.3, 1.5  # a person's effort against the base's rider (a tired one, a
+# strong one), capped by what the dump load holds (host_sim/envelope.py)
+SPRINT_HI = 1.5  # fresh power up to 1.5 x the base's, under the same cap
 
 
 # ---- bases ------------------------------------------------------------------------------------
@@ -229,6 +233,10 @@ class _Gen:
     def pick(self, seq):
         return seq[int(self.rng.integers(len(seq)))]
 
+    def merged(self, sections):
+        """The resolved base with this example's draws so far, for the named flat sections."""
+        return {k: dict(self.res[k], **self.doc.get(k, {})) for k in sections}
+
     def field(self, path):
         return schema_field(parse_path(path), self.kind)
 
@@ -302,15 +310,22 @@ def _components(g):
 def _drive(g, dur):
     k = g.kind
     if k in ("pedal", "crank"):
-        # a rider the dump load can hold at the trip (with the storage converters off, the
-        # dump alone loads the generator): a 240 W sprint at 110 rpm on the demo rig took the
-        # bus to 28.55 V against 28 (README, known limits); up to x1.2 effort on a x1.2 sprint
-        g.put("drive.effort", g.u(0.3, 1.2))
+        effort_at = g.u(0.0, 1.0)  # where in its range the effort falls (drawn here, set below)
         g.scale("drive.cadence_rpm", 0.5, 1.4)
         g.scale("drive.torque_max_nm", 0.7, 1.3)
-        start = get_path(g.res, ["drive", "power_start_w"]) * g.u(0.6, 1.2)
+        start = get_path(g.res, ["drive", "power_start_w"]) * g.u(0.6, SPRINT_HI)
         g.put("drive.power_start_w", start, 1)
         start = g.doc["drive"]["power_start_w"]
+        # a rider the dump load can hold at the trip (with the storage converters off, the
+        # dump alone loads the generator): their best, effort x fresh power, within 90 % of
+        # what the full dump absorbs with the bus at its limit on this example's machine
+        # (host_sim/envelope.py; the demo rig holds 219 W, and a 240 W sprint took its bus to
+        # 28.55 V against 28 V: README, known limits)
+        hold_w, _ = envelope.dump_hold(g.base["facts"]["trip_v"], g.merged(
+            ("bus", "machine", "rectifier", "gear")))
+        hi = min(EFFORT_HI, envelope.effort_max(hold_w, start))
+        lo = min(EFFORT_LO, hi)
+        g.put("drive.effort", lo + effort_at * (hi - lo))
         sus = get_path(g.res, ["drive", "power_sustained_w"]) * g.u(0.6, 1.2)
         g.put("drive.power_sustained_w", min(sus, start), 1)
         if g.chance(0.4):  # a new pattern of rests

@@ -3,7 +3,9 @@
 # events. Everything drawn is JSON, so a failing example is saved as a scenario file and
 # replayed with `spinrail simulate FILE`.
 import copy
+import functools
 import json
+import math
 from pathlib import Path
 
 from hypothesis import strategies as st
@@ -15,6 +17,20 @@ BASES = ("demo", "hut_wind", "crank_relief")
 def base_doc(name):
     with open(SCEN_DIR / (name + ".json")) as f:
         return json.load(f)
+
+
+@functools.lru_cache(maxsize=None)
+def effort_hi(name):
+    """The strongest effort the base's dump load holds at the trip (host_sim/envelope.py: the
+    rider's best, effort x fresh power, within 90 % of what the full dump absorbs at the bus
+    limit), and no more than 1.5."""
+    from host_sim import envelope
+    from host_sim.scenario import load_scenario
+    sc = load_scenario(name)
+    hold_w, _ = envelope.scenario_hold(sc)
+    hi = min(1.5, envelope.effort_max(hold_w, sc.doc["drive"]["power_start_w"]))
+    assert hi > 0.3, "%s: its dump load holds only a tired rider" % name
+    return hi
 
 
 @st.composite
@@ -102,8 +118,9 @@ def scenario_docs(draw, max_duration_s=90.0, events=True):
     sc["cap_spread_pct"] = round(draw(st.floats(0.0, 3.0)), 1)
     d = doc["drive"]
     if d["kind"] in ("pedal", "crank"):
-        # a rider the dump load can hold at the trip (scenario_gen.py, README known limits)
-        d["effort"] = round(draw(st.floats(0.3, 1.2)), 2)
+        # a rider the dump load can hold at the trip (host_sim/envelope.py, README known limits)
+        hi = effort_hi(base)
+        d["effort"] = math.floor(draw(st.floats(0.3, hi)) * 100.0) / 100.0  # never over hi
         d["cadence_rpm"] = round(draw(st.floats(30.0, 95.0)), 1)
         if draw(st.booleans()):
             d["reversals_s"] = [round(draw(st.floats(1.0, dur - 1.0)), 1)]

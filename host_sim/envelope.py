@@ -1,0 +1,59 @@
+# The closed-loop envelope's one derived bound: how strong a human drive the dump load can hold.
+#
+# During an overvoltage trip the storage converters and the USB port are off and the dump
+# resistor alone loads the generator (with the bleeder and the surge clamp). In steady state at
+# crank speed v the person's power goes into the machine through the gear; it comes out as the
+# armature's EMF times the current (copper, bridge and dump) and as friction. Take the bus at
+# the limit the closed-loop check allows (the trip plus the clamp's margin) with the full dump:
+#   I = V_lim / R_dump + V_lim / R_bleed + I_clamp(V_lim)
+#   E = V_lim + 2 Vf(I) + I R_a          (the bridge: two diodes conduct)
+#   w = E / K_e,  P_machine = E I + T_friction(w) w,  P_drive = P_machine / eta_gear
+# A person who can give no more than P_drive at the crank cannot hold the bus at V_lim against
+# the full dump: wherever the bus would sit higher the machine turns faster and takes more than
+# P_drive, so the rotor slows (the absorbed power rises with speed; the person's falls above
+# their cadence). This bounds the sustained state only: the approach to the trip is the soft
+# zone's and the latch's job, and the campaigns test it.
+#
+# Sources: the circuit relations are Kirchhoff's laws with the permanent-magnet machine's
+# E = K_e w and T = K_t I (K_t = K_e in SI units; any machines text, e.g. Hughes and Drury,
+# Electric Motors and Drives, chapter 3, from memory); the diode curve and machine are the
+# plant's own (host_sim/plant/diode.py, machine.py).
+import math
+
+from host_sim.plant.diode import Diode
+from host_sim.plant.machine import Machine
+
+HUMAN_DRIVES = ("pedal", "crank")
+# the draw keeps a person this far under what the dump holds: the plant's rider is quasi-static
+# (power-limited, no sprint above the fresh power), the margin covers the period-scale transients
+MARGIN = 0.9
+
+
+def dump_hold(trip_v, doc):
+    """(drive-side power in W, crank speed in rpm) that the full dump absorbs with the bus at
+    the closed-loop limit. trip_v: the profile's overvoltage trip, V; doc: a resolved scenario
+    document (its bus, machine, rectifier and gear sections, every field present)."""
+    b = doc["bus"]
+    v_lim = trip_v + b["clamp_margin_v"]
+    i_a = (v_lim / b["dump_ohm"] + v_lim / b["bleed_ohm"]
+           + 1e-3 * (v_lim / b["clamp_knee_v"]) ** b["clamp_alpha"])
+    mach = Machine.from_doc(doc["machine"])
+    e_v = v_lim + Diode.from_doc(doc["rectifier"]).bridge_drop(i_a) + i_a * mach.ra
+    w = e_v / mach.k
+    t_fric, _ = mach.friction(w)  # negative: it opposes the turning
+    p_machine_w = e_v * i_a - t_fric * w
+    g = doc["gear"]
+    p_drive_w = p_machine_w / g["efficiency"]
+    crank_rpm = w / g["ratio"] * 60.0 / (2.0 * math.pi)
+    return p_drive_w, crank_rpm
+
+
+def scenario_hold(sc):
+    """dump_hold for a loaded scenario (host_sim.scenario.Scenario)."""
+    return dump_hold(sc.profile.ovp_trip_mv / 1000.0, sc.doc)
+
+
+def effort_max(p_drive_w, power_start_w, margin=MARGIN):
+    """The largest effort (the drive's scale on its power curve) a person with this fresh power
+    may have so their best, effort x power_start_w, stays within margin x what the dump holds."""
+    return margin * p_drive_w / power_start_w
