@@ -44,6 +44,13 @@ NET_FAULTS = ("open", "short_to_ground", "lines_shorted", "decade_up", "decade_d
 NET_RESISTORS = ("dp_top", "dp_bottom", "dm_top", "dm_bottom", "between")
 TOL_CHANNELS = ("bus_v", "src_a", "batt_v", "batt_a", "cap_v", "cap_a", "usb_vbus")
 SURGE_MAX_S = 1.0  # longest bus surge drawn, s
+# Stiffest bus surge drawn, ohm. A surge arrives within a control period and the converters
+# pass it on until the guard answers at the next tick: a 27.5 V, 1 ohm surge put an aged
+# 6.6 Ah block at 44 C 0.065 V over its ceiling-plus-margin, with 50 ms and 20 ms periods
+# alike (fuzz seed 43, example 1600); 2 ohm 0.01 V over; 3 ohm 0.05 V under (README, known
+# limits). Stiffer surges are a hardware question: an input filter, a lower clamp, or a
+# converter with a cycle-by-cycle current limit.
+SURGE_OHM_MIN = 3.0
 EFFORT_LO, EFFORT_HI = 0.3, 1.5  # a person's effort against the base's rider (a tired one, a
 # strong one), capped by what the dump load holds (host_sim/envelope.py)
 SPRINT_HI = 1.5  # fresh power up to 1.5 x the base's, under the same cap
@@ -413,8 +420,9 @@ def _events(g, dur):
         elif kind == "bus_surge":
             # above the trip (the guard must act), open-circuit voltage at most the bus limit:
             # the controller answers a period later, and until then only the clamp holds the
-            # bus (a stiffer surge is a clamp-sizing question: `sweep`)
-            ohm = g.u(1.0, 10.0)
+            # bus (a stiffer surge is a clamp-sizing question: `sweep`); no stiffer than
+            # SURGE_OHM_MIN, which the battery's converter passes on within that period
+            ohm = g.u(SURGE_OHM_MIN, 10.0)
             trip_v = facts["trip_v"]
             lim_v = facts["bus_limit_v"]
             ev["surge_ohm"] = _r(ohm)
@@ -440,7 +448,8 @@ def _events(g, dur):
 def outside_envelope(ev, facts):
     """A base's own fault event the campaign leaves out (see STUCK_VALUES above): the bus
     voltage sensor stuck, open at 0, or behind a divider that reads low; the battery current
-    sensor frozen inside the charge limit or open at 0; the battery divider reading low."""
+    sensor frozen inside the charge limit or open at 0; the battery divider reading low; a bus
+    surge stiffer than SURGE_OHM_MIN."""
     k = ev.get("kind")
     if k == "sensor_stuck" and ev.get("sensor") == "bus_v":
         return True
@@ -453,6 +462,8 @@ def outside_envelope(ev, facts):
         return True  # the battery voltage frozen inside its ceiling hides the ceiling
     if k == "sensor_open" and ev.get("sensor") == "bus_v" and ev.get("reads") == "zero":
         return True
+    if k == "bus_surge" and ev.get("energy_j") is None and ev.get("surge_ohm", 2.0) < SURGE_OHM_MIN:
+        return True  # stiffer than the converters ride through in a period (SURGE_OHM_MIN)
     if k == "wrong_divider_resistor" and ev.get("resistor") in ("bus_top", "bus_bottom",
                                                                   "batt_top", "batt_bottom"):
         nom = facts["dividers"][ev["resistor"]]
