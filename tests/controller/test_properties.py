@@ -9,6 +9,8 @@ A failure prints the Scenario(...) to paste into a regression test and the repro
 and leaves the failing run as files in spinrail-out/controller-failures/ (the scenario, its
 profile, and the readings as a vector CSV that `controller.replay` runs on either interpreter).
 """
+from array import array
+
 import pytest
 from ctl_bench import ROOT, write_doc
 from ctl_props import (
@@ -180,11 +182,12 @@ def test_i8_state_stays_within_the_small_int_range(scn):
         if not fields:
             for obj in controller_state(sup):
                 for name, v in vars(obj).items():
-                    if isinstance(v, (int, list)) and not isinstance(v, bool):
+                    # state and profile slots live in array('i') buffers (viper code)
+                    if isinstance(v, (int, list, array)) and not isinstance(v, bool):
                         fields.append((obj, name))
         for obj, name in fields:
             v = getattr(obj, name)
-            for x in (v if isinstance(v, list) else (v,)):
+            for x in (v if isinstance(v, (list, array)) else (v,)):
                 assert -SMALL_INT <= x < SMALL_INT, (k, type(obj).__name__, name, x)
 
     run(scn, probe=probe)
