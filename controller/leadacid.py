@@ -192,6 +192,7 @@ class LeadAcidCharger:
         fault = 0
         t = int(m.batt_temp_dc)
         v = int(m.batt_mv)
+        i_ma = int(m.batt_ma)
         lo = ((cfg[_C_TEMP_MIN] + _S_HALF) & _S_MASK) - _S_HALF  # signed slot
         hi = cfg[_C_TEMP_MAX]
         if t < _TEMP_MIN_PLAUSIBLE_DC or t > _TEMP_MAX_PLAUSIBLE_DC:
@@ -253,10 +254,9 @@ class LeadAcidCharger:
                 if at_v:
                     new = _ST_ABSORPTION
             else:
-                i = int(m.batt_ma)
-                if ptr32(loop)[_L_DUTY] > 0 and i > 0:  # charging (the loop's duty)
+                if ptr32(loop)[_L_DUTY] > 0 and i_ma > 0:  # charging (the loop's duty)
                     s[_ABS_MS] = s[_ABS_MS] + dt_ms
-                if at_v and i <= cfg[_C_TAIL_MA]:
+                if at_v and i_ma <= cfg[_C_TAIL_MA]:
                     s[_TAIL_MS] = s[_TAIL_MS] + dt_ms
                 else:
                     s[_TAIL_MS] = 0
@@ -275,7 +275,7 @@ class LeadAcidCharger:
             elif s[_REBULK_MS] >= cfg[_C_REBULK_HOLD_MS]:
                 new = _ST_BULK
         elif st == _ST_EQUALIZE:
-            if ptr32(loop)[_L_DUTY] > 0 and int(m.batt_ma) > 0:  # charging
+            if ptr32(loop)[_L_DUTY] > 0 and i_ma > 0:  # charging
                 s[_EQ_MS] = s[_EQ_MS] + dt_ms
             if not eq_req or s[_EQ_MS] >= cfg[_C_EQ_MAX_MS]:
                 new = _ST_FLOAT
@@ -308,7 +308,7 @@ class LeadAcidCharger:
             ls[_L_DUTY] = 0
             ls[_L_BUS_LAST] = 0
             return 0
-        return int(regulate(loop, v, ceil, int(m.batt_ma), cfg[_C_LIMIT_MA],
+        return int(regulate(loop, v, ceil, i_ma, cfg[_C_LIMIT_MA],
                             int(m.bus_mv), floor_mv, _BIG_MV, 0))
 
 

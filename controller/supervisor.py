@@ -215,6 +215,7 @@ class Supervisor:
 
         # battery
         charger = self.charger
+        ch = ptr32(charger.st)
         fs = cfg[_C_BATT_FS_MV]
         if batt_mv < -fs or batt_mv > fs or batt_ma < -fs_ma or batt_ma > fs_ma:
             fault |= _F_BATT_SENSOR
@@ -223,20 +224,20 @@ class Supervisor:
         else:
             c.batt_out = charger.discharge(batt_mv)
             c.batt_duty = charger.update(m, dt, floor)
-            fault |= ptr32(charger.st)[_CH_FAULT]
-        ch = ptr32(charger.st)
+            fault |= ch[_CH_FAULT]
         c.stage = _ST_BLOCKED if ch[_CH_BLOCKED] else ch[_CH_STAGE]
 
         # supercap
         clamp = self.clamp
+        k = ptr32(clamp.st)
         if (cap_mv < _NEG_MV or cap_mv > cfg[_C_CAP_FS_MV] or cap_ma < -fs_ma or cap_ma > fs_ma
                 or (int(m.n_taps) and int(self._taps_implausible()))):
             fault |= _F_CAP_SENSOR
             c.cap_duty = clamp.block()
         else:
             c.cap_duty = clamp.update(m, floor + _CAP_FLOOR_MV)
-            fault |= ptr32(clamp.st)[_CAP_FAULT]
-        c.bal_mask = ptr32(clamp.st)[_CAP_BAL_MASK]
+            fault |= k[_CAP_FAULT]
+        c.bal_mask = k[_CAP_BAL_MASK]
         c.fault = fault
 
     @micropython.viper
