@@ -145,6 +145,8 @@ class Supervisor:
             # stopped, read once with a lagging current sample, must not keep the battery's
             # loads off; a stuck sensor reads the same value on and on). Only plausible
             # readings may contradict the bus: an implausible one is its own fault.
+            # (the sums are on the plausible bus: an implausible store reading near a 32-bit
+            # board's word limit must not wrap them)
             b = bus + _XCHK_MV
             if ((int(c.batt_duty) and _XCHK_MA < batt_ma <= fs_ma
                  and b < batt_mv <= cfg[_C_BATT_FS_MV])
@@ -152,7 +154,7 @@ class Supervisor:
                         and b < cap_mv <= cfg[_C_CAP_FS_MV])):
                 s[_BUS_LIE] = 1
                 s[_LIE_MV] = bus
-            elif s[_BUS_LIE] and ((bus > batt_mv + _XCHK_MV and bus > cap_mv + _XCHK_MV)
+            elif s[_BUS_LIE] and ((bus - _XCHK_MV > batt_mv and bus - _XCHK_MV > cap_mv)
                                   or (batt_ma <= _XCHK_MA and cap_ma <= _XCHK_MA
                                       and bus != ((s[_LIE_MV] + _S_HALF) & _S_MASK) - _S_HALF)):
                 s[_BUS_LIE] = 0
