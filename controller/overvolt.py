@@ -115,8 +115,9 @@ class OverVoltGuard:
         cfg = ptr32(self.cfg)
         trip_at = ptr32(self.trip_at)
         n_max = cfg[_C_LOCKOUT_TRIPS]
-        trip_at[s[_NEXT]] = now_ms
-        s[_LAST_MS] = now_ms
+        # times are read modulo the clock period only: masked, a caller's unmasked clock fits
+        trip_at[s[_NEXT]] = now_ms & _TICKS_MASK
+        s[_LAST_MS] = now_ms & _TICKS_MASK
         s[_NEXT] += 1
         if s[_NEXT] >= n_max:
             s[_NEXT] = 0

@@ -118,7 +118,8 @@ class Supervisor:
                 dt = 0
             elif dt > cfg[_C_DT_MAX_MS]:
                 dt = cfg[_C_DT_MAX_MS]
-        s[_LAST_MS] = now_ms
+        s[_LAST_MS] = now_ms & _TICKS_MASK  # (dt reads it modulo the period only: a caller's
+        # unmasked clock still fits the slot)
         self.ticks = ticks + 1 if ticks < _TICKS_MASK else 1  # stays a small int
 
         fault = 0
