@@ -26,7 +26,7 @@ _UNDER_MV = const(300)  # u never winds further below the output than this
 
 # state slots of BuckLoop.st (array('i')); the host names them (state_names at the end)
 _U = const(0)  # u_mv: commanded converter output voltage, mV; 0 when idle
-_DUTY = const(1)  # duty: last duty, 0.._DUTY_MAX
+_DUTY = const(1)  # duty: last duty, 0.._DUTY_MAX (below 0 after a bus read below 0 V)
 _BUS_LAST = const(2)  # bus_last_mv: bus at the previous update, mV (may be negative)
 _S_HALF = const(0x20000000)  # sign restore of a ptr32 load (compat.py, viper state)
 _S_MASK = const(0x3FFFFFFF)
@@ -96,7 +96,8 @@ def regulate(st, out_mv: int, ceil_mv: int, out_ma: int, lim_ma: int, bus_mv: in
         # delivered less than u, the current loop wound u up to make up for it, and a bus
         # that stops falling would hand the store all of it at once (a crank's bus settling
         # took the battery 11 % over its limit for two periods)
-        made = (ls[_DUTY] * bus_mv) // _DUTY_MAX
+        made = ((((ls[_DUTY] + _S_HALF) & _S_MASK) - _S_HALF)  # signed slot: a bus
+                * bus_mv) // _DUTY_MAX  # below 0 V makes a negative duty
         if out_ma < lim_ma:
             made += (lim_ma - out_ma) >> 3
         if u > made:
@@ -148,7 +149,7 @@ def regulate(st, out_mv: int, ceil_mv: int, out_ma: int, lim_ma: int, bus_mv: in
         # restarts from the output instead of from a wound-up u
         u = top_mv
     ls[_U] = u
-    last_d = ls[_DUTY]
+    last_d = ((ls[_DUTY] + _S_HALF) & _S_MASK) - _S_HALF  # signed slot
     if out_mv >= ceil_mv and d > last_d:
         d = last_d  # the feedforward must not raise it either (a falling bus)
     if cut and d > last_d - (last_d >> 2):

@@ -254,7 +254,8 @@ class LeadAcidCharger:
                 if at_v:
                     new = _ST_ABSORPTION
             else:
-                if ptr32(loop)[_L_DUTY] > 0 and i_ma > 0:  # charging (the loop's duty)
+                duty = ((ptr32(loop)[_L_DUTY] + _S_HALF) & _S_MASK) - _S_HALF  # signed slot
+                if duty > 0 and i_ma > 0:  # charging
                     s[_ABS_MS] = s[_ABS_MS] + dt_ms
                 if at_v and i_ma <= cfg[_C_TAIL_MA]:
                     s[_TAIL_MS] = s[_TAIL_MS] + dt_ms
@@ -275,7 +276,8 @@ class LeadAcidCharger:
             elif s[_REBULK_MS] >= cfg[_C_REBULK_HOLD_MS]:
                 new = _ST_BULK
         elif st == _ST_EQUALIZE:
-            if ptr32(loop)[_L_DUTY] > 0 and i_ma > 0:  # charging
+            duty = ((ptr32(loop)[_L_DUTY] + _S_HALF) & _S_MASK) - _S_HALF  # signed slot
+            if duty > 0 and i_ma > 0:  # charging
                 s[_EQ_MS] = s[_EQ_MS] + dt_ms
             if not eq_req or s[_EQ_MS] >= cfg[_C_EQ_MAX_MS]:
                 new = _ST_FLOAT

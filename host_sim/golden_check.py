@@ -168,7 +168,7 @@ def run_case(name, p, n_ticks, seed):
                     m.cell_mv[rng.below(m.n_taps)] = rng.between(-2000, 9000)
         # sensor glitches: one reading far out of range (or stuck at a limit) for a few ticks
         if glitch_left == 0 and rng.chance(250):
-            glitch_field = rng.below(13)
+            glitch_field = rng.below(14)
             glitch_left = rng.between(1, 40)
             glitch_val = rng.between(-5000, 60000) if rng.chance(2) else -rng.between(0, 40000)
         if glitch_left:
@@ -198,9 +198,14 @@ def run_case(name, p, n_ticks, seed):
                 m.batt_mv = rng.between(-3000, cells * 900)
             elif g == 11:  # an overvoltage spike
                 m.bus_mv = p.ovp_trip_mv + rng.between(-1500, 3000)
-            else:  # a bus that reads low under running converters (the bus cross-check)
+            elif g == 12:  # a bus that reads low under running converters (the cross-check)
                 m.bus_mv = m.batt_mv - rng.between(0, 3000)
                 m.batt_ma = rng.between(0, 3000)
+            else:  # bus and bank both just below 0 V (offsets): the bank's converter is
+                # asked for a negative duty, and the bus comes back with the bank near its limit
+                m.bus_mv = -rng.between(1, 480)
+                m.cap_mv = -rng.between(380, 500)
+                m.cap_ma = p.cap_limit_ma - rng.between(0, 300)
         if rng.chance(3000):
             m.eq_req = 1 - m.eq_req
         m.reset_req = 1 if rng.chance(800) else 0
