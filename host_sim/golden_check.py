@@ -126,6 +126,7 @@ def run_case(name, p, n_ticks, seed):
     seen_stage = 0
     seen_fault = 0
     seen_on = 0
+    raised = 0
     for k in range(n_ticks):
         if rng.chance(700):
             for w in walks:
@@ -209,8 +210,15 @@ def run_case(name, p, n_ticks, seed):
         if rng.chance(3000):
             m.eq_req = 1 - m.eq_req
         m.reset_req = 1 if rng.chance(800) else 0
-        sup.tick(t)
-        x = h
+        try:
+            sup.tick(t)
+            x = h
+        except ZeroDivisionError:
+            # a known latent fault (buckloop.regulate: a bus rising below 0 V under a bank
+            # reading below -0.3 V divides by zero): hashed, so it must happen at the same
+            # tick everywhere; the commands then hold what the tick wrote before it
+            x = ((h ^ 0xDEAD) * 16777619) & MASK32
+            raised += 1
         for f in FIELDS:
             x = ((x ^ (getattr(c, f) & MASK32)) * 16777619) & MASK32
         h = x
@@ -230,7 +238,7 @@ def run_case(name, p, n_ticks, seed):
         else:
             dt = p.period_ms + rng.between(-2, 2)
         t = (t + dt) & 0x3FFFFFFF
-    return h, seen_stage, seen_fault, seen_on
+    return h, seen_stage, seen_fault, seen_on, raised
 
 
 def main(argv):
@@ -242,9 +250,9 @@ def main(argv):
         if only and name != only:
             continue
         p = load_case(path, over)
-        h, st, fl, on = run_case(name, p, n, seed)
-        print("%s ticks=%d hash=%08x stages=%x faults=%x usb_bal_dump=%x"
-              % (name, n, h, st, fl, on))
+        h, st, fl, on, raised = run_case(name, p, n, seed)
+        print("%s ticks=%d hash=%08x stages=%x faults=%x usb_bal_dump=%x raised=%d"
+              % (name, n, h, st, fl, on, raised))
 
 
 if __name__ == "__main__":
