@@ -138,9 +138,10 @@ def regulate(st, out_mv: int, ceil_mv: int, out_ma: int, lim_ma: int, bus_mv: in
         ff = bus_mv + (bus_mv - last)
     ls[_BUS_LAST] = bus_mv
     if ff == 0:
-        # bus_mv is > 0 here unless the store reads below -_HEAD_MV with the bus at 0 mV;
-        # the interpreter's // raised there, and a viper // by zero would kill the port
-        # instead: raise as before
+        # bus_mv is > 0 here unless the store reads below -_HEAD_MV: then a bus at 0 mV, or
+        # one rising below 0 V to half its last reading, gives ff == 0. The interpreter's //
+        # raised there, a viper // by zero kills the port instead: raise as before (a latent
+        # fault, kept as it was; docs/performance.md)
         raise ZeroDivisionError
     d = (u * _DUTY_MAX) // ff
     if d > _DUTY_TOP:
