@@ -14,7 +14,26 @@ except ImportError:  # CPython: the code emitters are MicroPython's; here they c
         def native(f):
             return f
 
+        @staticmethod
+        def viper(f):
+            return f
+
+    def ptr32(buf):
+        """CPython stand-in for viper's ptr32(buf): the array itself (indexing is the same).
+        On a board the viper compiler reads ptr32() itself, so modules import this name only
+        on CPython."""
+        return buf
+
 MICROPYTHON = sys.implementation.name == "micropython"
+
+# Viper state (GUIDE: the tick's cost): the tick's objects keep their state and their profile
+# numbers in array('i') buffers, read and written in @micropython.viper code through ptr32()
+# as machine loads and stores instead of dictionary look-ups. On a 64-bit port a ptr32 load
+# is zero-extended, so a slot that can hold a negative value is read back with the wrap
+# idiom ((x + _S_HALF) & _S_MASK) - _S_HALF, exact for values within +/-2**29 on any word
+# size (the constants are small ints: viper rejects larger literals). Viper ints are machine
+# words: every intermediate stays within +/-2**30 anyway (GUIDE §2), so a 32-bit board and
+# CPython agree. Viper's // and % floor as Python's do (checked on the unix port).
 
 # Millisecond clock period. Boards wrap ticks_ms() at 2**30 (the small-int range on 32-bit
 # ports); the firmware entry and every host runner mask now_ms to this period so the same
@@ -48,3 +67,14 @@ def to_int(value, scale):
     if x >= 0:
         return int(x + 0.5)
     return -int(-x + 0.5)
+
+
+if not MICROPYTHON:
+    def state_names(cls, buf, **slots):
+        """Host only: make each named slot of the array attribute buf of cls readable and
+        settable as an attribute of that name (the tests and host tools read the state by
+        name; a board spends no RAM on the names)."""
+        for name, i in slots.items():
+            setattr(cls, name, property(
+                lambda self, i=i: getattr(self, buf)[i],
+                lambda self, v, i=i: getattr(self, buf).__setitem__(i, v)))

@@ -5,8 +5,14 @@
 # if it rose, keep stepping the same way, else turn round.
 # Above overspeed_mv the dump load ramps in (storage full or a gust the storage cannot take);
 # the overvoltage guard stays the hard backstop.
-from controller.compat import const, micropython
-from controller.signals import DUTY_MAX
+from array import array
+
+from controller.compat import MICROPYTHON, const, micropython
+
+if not MICROPYTHON:  # on a board the viper compiler reads ptr32() itself
+    from controller.compat import ptr32, state_names
+
+_DUTY_MAX = const(10000)  # signals.DUTY_MAX as a const (a machine int in viper)
 
 _DUMP_RAMP_MV = const(1000)  # dump duty goes 0 -> full over this much bus above overspeed
 # Fast attack, slow release: the dump follows a rising bus at once but falls by at most this
@@ -20,62 +26,87 @@ _DUMP_RELEASE = const(500)
 _MAX_TICKS = const(1000)
 
 
+# state slots of HillClimb.st (array('i')); the host names them (end of file)
+_SET_MV = const(0)  # set_mv: bus setpoint, mV
+_DIR = const(1)  # dir: +1 raise the setpoint, -1 lower it (signed slot)
+_N = const(2)  # n: ticks summed
+_LAST_CW = const(3)  # last_cw: mean input power of the previous interval, 10 mW (signed slot)
+_ELAPSED_MS = const(4)  # elapsed_ms: time in this interval, ms
+_DUMP = const(5)  # dump: overspeed dump duty of the last period (0..DUTY_MAX)
+_TOP_MV = const(6)  # top_mv: the setpoint stays below overspeed, mV
+# profile slots of HillClimb.cfg (array('i'))
+_C_FLOOR_MV = const(0)
+_C_STEP_MV = const(1)  # mppt_step_mv
+_C_INTERVAL_MS = const(2)  # mppt_interval_ms
+_C_OVERSPEED_MV = const(3)  # 0: no overspeed dump
+_S_HALF = const(0x20000000)  # sign restore of a ptr32 load (compat.py, viper state)
+_S_MASK = const(0x3FFFFFFF)
+
+
 class HillClimb:
     def __init__(self, p):
         self.p = p
-        self.set_mv = p.floor_mv + 2 * p.mppt_step_mv  # bus setpoint, mV
-        self.dir = 1  # +1 raise the setpoint, -1 lower it
-        self.acc_cw = 0  # input power summed over this interval, 10 mW x ticks
-        self.n = 0  # ticks summed
-        self.last_cw = 0  # mean input power of the previous interval, 10 mW
-        self.elapsed_ms = 0  # time in this interval, ms
-        self.dump = 0  # overspeed dump duty of the last period (0..DUTY_MAX)
         hi = p.overspeed_mv if p.overspeed_mv else p.ovp_recover_mv
-        self.top_mv = hi - p.mppt_step_mv  # the setpoint stays below overspeed
+        self.st = array("i", [p.floor_mv + 2 * p.mppt_step_mv, 1, 0, 0, 0, 0,
+                              hi - p.mppt_step_mv])  # the state, slots above
+        self.cfg = array("i", [p.floor_mv, p.mppt_step_mv, p.mppt_interval_ms, p.overspeed_mv])
+        # input power summed over this interval, 10 mW x ticks: an attribute, not a slot,
+        # because it may reach 10**9, past the +/-2**29 a signed slot reads back on a 64-bit
+        # port (compat.py)
+        self.acc_cw = 0
 
-    @micropython.native
-    def update(self, bus_mv, in_ma, dt_ms):
+    @micropython.viper
+    def update(self, bus_mv: int, in_ma: int, dt_ms: int) -> int:
         """Returns the bus setpoint (mV) for the converters' floor."""
-        p = self.p
-        acc = self.acc_cw + ((bus_mv // 10) * (in_ma // 10)) // 100
-        n = self.n + 1
-        elapsed = self.elapsed_ms + dt_ms
+        s = ptr32(self.st)
+        cfg = ptr32(self.cfg)
+        acc = int(self.acc_cw) + ((bus_mv // 10) * (in_ma // 10)) // 100
+        n = s[_N] + 1
+        elapsed = s[_ELAPSED_MS] + dt_ms
         self.acc_cw = acc
-        self.n = n
-        self.elapsed_ms = elapsed
-        if elapsed >= p.mppt_interval_ms or n >= _MAX_TICKS:
+        s[_N] = n
+        s[_ELAPSED_MS] = elapsed
+        if elapsed >= cfg[_C_INTERVAL_MS] or n >= _MAX_TICKS:
             mean = acc // n
-            if mean < self.last_cw:
-                self.dir = -self.dir
-            self.last_cw = mean
+            direction = ((s[_DIR] + _S_HALF) & _S_MASK) - _S_HALF  # signed slot
+            if mean < ((s[_LAST_CW] + _S_HALF) & _S_MASK) - _S_HALF:  # signed slot
+                direction = -direction
+            s[_LAST_CW] = mean
             self.acc_cw = 0
-            self.n = 0
-            self.elapsed_ms = 0
-            s = self.set_mv + self.dir * p.mppt_step_mv
-            if s > self.top_mv:
-                s = self.top_mv
-                self.dir = -1
-            elif s < p.floor_mv:
-                s = p.floor_mv
-                self.dir = 1
-            self.set_mv = s
-        return self.set_mv
+            s[_N] = 0
+            s[_ELAPSED_MS] = 0
+            set_mv = s[_SET_MV] + direction * cfg[_C_STEP_MV]
+            if set_mv > s[_TOP_MV]:
+                set_mv = s[_TOP_MV]
+                direction = -1
+            elif set_mv < cfg[_C_FLOOR_MV]:
+                set_mv = cfg[_C_FLOOR_MV]
+                direction = 1
+            s[_DIR] = direction
+            s[_SET_MV] = set_mv
+        return s[_SET_MV]
 
-    @micropython.native
-    def dump_duty(self, bus_mv):
+    @micropython.viper
+    def dump_duty(self, bus_mv: int) -> int:
         """Overspeed dump duty for this period (0 when overspeed is not set): in proportion to
         the bus above overspeed_mv over _DUMP_RAMP_MV, and never below last period's less
         _DUMP_RELEASE."""
-        o = self.p.overspeed_mv
+        o = ptr32(self.cfg)[_C_OVERSPEED_MV]
         if o == 0:
             return 0
+        s = ptr32(self.st)
         d = 0
         if bus_mv > o:
-            d = ((bus_mv - o) * DUTY_MAX) // _DUMP_RAMP_MV
-            if d > DUTY_MAX:
-                d = DUTY_MAX
-        held = self.dump - _DUMP_RELEASE
+            d = ((bus_mv - o) * _DUTY_MAX) // _DUMP_RAMP_MV
+            if d > _DUTY_MAX:
+                d = _DUTY_MAX
+        held = s[_DUMP] - _DUMP_RELEASE
         if d < held:
             d = held
-        self.dump = d
+        s[_DUMP] = d
         return d
+
+
+if not MICROPYTHON:
+    state_names(HillClimb, "st", set_mv=_SET_MV, dir=_DIR, n=_N, last_cw=_LAST_CW,
+                elapsed_ms=_ELAPSED_MS, dump=_DUMP, top_mv=_TOP_MV)

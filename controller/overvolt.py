@@ -4,8 +4,16 @@
 # source (a jammed furl, a wrong gear, a dump resistor gone open): after lockout_trips trips
 # within trip_window the outputs stay off until reset_req (or a power cycle); the dump load
 # keeps answering every trip meanwhile.
-from controller.compat import const, micropython, ticks_diff
-from controller.signals import DUTY_MAX
+from array import array
+
+from controller.compat import MICROPYTHON, const, micropython
+
+if not MICROPYTHON:  # on a board the viper compiler reads ptr32() itself
+    from controller.compat import ptr32, state_names
+
+_DUTY_MAX = const(10000)  # signals.DUTY_MAX as a const (a machine int in viper)
+_TICKS_HALF = const(0x20000000)  # compat.ticks_diff, written out
+_TICKS_MASK = const(0x3FFFFFFF)
 
 # When the latch clears the dump load steps down over ten periods instead of at once: a
 # source that was held by the full dump would otherwise find an unloaded bus (the storage
@@ -20,82 +28,114 @@ _RELEASE_STEP = const(1000)
 _SOFT_RELEASE = const(500)
 
 
+# state slots of OverVoltGuard.st (array('i'), all >= 0); the host names them (end of file)
+_TRIPPED = const(0)  # tripped: 1 while latched after a trip
+_LOCKED = const(1)  # locked: 1 after too many trips in the window, until reset
+_BELOW_MS = const(2)  # below_ms: time the bus has stayed below the recovery level while
+# latched, ms
+_N_TRIPS = const(3)  # n_trips: valid entries in trip_at (up to lockout_trips)
+_NEXT = const(4)  # next: ring index for the next trip
+_LAST_MS = const(5)  # last_ms: now_ms of the newest trip in trip_at
+_TRIPS_TOTAL = const(6)  # trips_total: trips since start (telemetry)
+_RAMP = const(7)  # ramp: latch dump: full while latched, then stepping down by _RELEASE_STEP
+_SOFT = const(8)  # soft: soft-zone dump duty of the last period (0..DUTY_MAX)
+_DUMP = const(9)  # dump: dump duty the guard asks for: the larger of ramp and soft
+# profile slots of OverVoltGuard.cfg (array('i'))
+_C_TRIP_MV = const(0)
+_C_RECOVER_MV = const(1)
+_C_HOLD_MS = const(2)
+_C_WINDOW_MS = const(3)
+_C_LOCKOUT_TRIPS = const(4)
+_C_SOFT_SPAN_MV = const(5)  # soft_span_mv: recovery to trip, mV (at least 1)
+
+
 class OverVoltGuard:
     def __init__(self, p):
         self.p = p
-        self.tripped = 0  # 1 while latched after a trip
-        self.locked = 0  # 1 after too many trips in the window, until reset
-        self.below_ms = 0  # time the bus has stayed below the recovery level while latched, ms
-        self.trip_at = [0] * p.lockout_trips  # ring of recent trip times (now_ms)
-        self.n_trips = 0  # valid entries in trip_at (up to lockout_trips)
-        self.next = 0  # ring index for the next trip
-        self.last_ms = 0  # now_ms of the newest trip in trip_at
-        self.trips_total = 0  # trips since start (telemetry)
-        self.ramp = 0  # latch dump: full while latched, then stepping down by _RELEASE_STEP
-        self.soft = 0  # soft-zone dump duty of the last period (0..DUTY_MAX)
-        self.soft_span_mv = max(1, p.ovp_trip_mv - p.ovp_recover_mv)  # recovery to trip, mV
-        self.dump = 0  # dump duty the guard asks for: the larger of ramp and soft
+        self.st = array("i", [0] * 10)  # the state, slots above
+        self.trip_at = array("i", [0] * p.lockout_trips)  # ring of recent trip times (now_ms)
+        self.cfg = array("i", [p.ovp_trip_mv, p.ovp_recover_mv, p.ovp_hold_ms, p.trip_window_ms,
+                               p.lockout_trips, max(1, p.ovp_trip_mv - p.ovp_recover_mv)])
 
-    @micropython.native
-    def update(self, bus_mv, dt_ms, now_ms, reset_req):
-        p = self.p
-        if self.n_trips and ticks_diff(now_ms, self.last_ms) >= p.trip_window_ms:
-            # the newest trip left the window, so did the older ones: forget them now, before
-            # they age past ticks_diff's 2**29 ms and read as recent again
-            self.n_trips = 0
-        if bus_mv >= p.ovp_trip_mv:
-            self.below_ms = 0
-            if not self.tripped:
-                self.tripped = 1
-                self.trips_total += 1
+    @micropython.viper
+    def update(self, bus_mv: int, dt_ms: int, now_ms: int, reset_req: int):
+        s = ptr32(self.st)
+        cfg = ptr32(self.cfg)
+        if s[_N_TRIPS]:
+            since_ms = ((now_ms - s[_LAST_MS] + _TICKS_HALF) & _TICKS_MASK) - _TICKS_HALF
+            if since_ms >= cfg[_C_WINDOW_MS]:
+                # the newest trip left the window, so did the older ones: forget them now,
+                # before they age past ticks_diff's 2**29 ms and read as recent again
+                s[_N_TRIPS] = 0
+        tripped = s[_TRIPPED]
+        if bus_mv >= cfg[_C_TRIP_MV]:
+            s[_BELOW_MS] = 0
+            if not tripped:
+                tripped = 1
+                s[_TRIPPED] = 1
+                s[_TRIPS_TOTAL] += 1
                 self._record(now_ms)
-        elif self.tripped:
-            if bus_mv < p.ovp_recover_mv:
-                self.below_ms += dt_ms
-                if self.below_ms >= p.ovp_hold_ms:
-                    self.tripped = 0
-                    self.below_ms = 0
+        elif tripped:
+            if bus_mv < cfg[_C_RECOVER_MV]:
+                below = s[_BELOW_MS] + dt_ms
+                s[_BELOW_MS] = below
+                if below >= cfg[_C_HOLD_MS]:
+                    tripped = 0
+                    s[_TRIPPED] = 0
+                    s[_BELOW_MS] = 0
             else:
-                self.below_ms = 0
-        if reset_req and self.locked and not self.tripped:
-            self.locked = 0
-            self.n_trips = 0
-        ramp = self.ramp
-        if self.tripped:
-            ramp = DUTY_MAX
+                s[_BELOW_MS] = 0
+        if reset_req and s[_LOCKED] and not tripped:
+            s[_LOCKED] = 0
+            s[_N_TRIPS] = 0
+        ramp = s[_RAMP]
+        if tripped:
+            ramp = _DUTY_MAX
         elif ramp > _RELEASE_STEP:
             ramp -= _RELEASE_STEP
         else:
             ramp = 0
-        self.ramp = ramp
+        s[_RAMP] = ramp
         soft = 0
-        over = bus_mv - p.ovp_recover_mv
-        span = self.soft_span_mv
+        over = bus_mv - cfg[_C_RECOVER_MV]
+        span = cfg[_C_SOFT_SPAN_MV]
         if over >= span:
-            soft = DUTY_MAX
+            soft = _DUTY_MAX
         elif over > 0:
-            soft = (over * DUTY_MAX) // span  # over < span < 60 V: stays a small int
-        held = self.soft - _SOFT_RELEASE
+            soft = (over * _DUTY_MAX) // span  # over < span < 60 V: stays a small int
+        held = s[_SOFT] - _SOFT_RELEASE
         if soft < held:
             soft = held
-        self.soft = soft
-        self.dump = ramp if ramp > soft else soft
+        s[_SOFT] = soft
+        s[_DUMP] = ramp if ramp > soft else soft
 
-    @micropython.native
-    def _record(self, now_ms):
-        p = self.p
-        self.trip_at[self.next] = now_ms
-        self.last_ms = now_ms
-        self.next += 1
-        if self.next >= p.lockout_trips:
-            self.next = 0
-        if self.n_trips < p.lockout_trips:
-            self.n_trips += 1
-        if self.n_trips < p.lockout_trips:
+    @micropython.viper
+    def _record(self, now_ms: int):
+        s = ptr32(self.st)
+        cfg = ptr32(self.cfg)
+        trip_at = ptr32(self.trip_at)
+        n_max = cfg[_C_LOCKOUT_TRIPS]
+        # times are read modulo the clock period only: masked, a caller's unmasked clock fits
+        trip_at[s[_NEXT]] = now_ms & _TICKS_MASK
+        s[_LAST_MS] = now_ms & _TICKS_MASK
+        s[_NEXT] += 1
+        if s[_NEXT] >= n_max:
+            s[_NEXT] = 0
+        if s[_N_TRIPS] < n_max:
+            s[_N_TRIPS] += 1
+        if s[_N_TRIPS] < n_max:
             return
         recent = 0
-        for i in range(p.lockout_trips):
-            if ticks_diff(now_ms, self.trip_at[i]) < p.trip_window_ms:
+        window = cfg[_C_WINDOW_MS]
+        for i in range(n_max):
+            if ((now_ms - trip_at[i] + _TICKS_HALF) & _TICKS_MASK) - _TICKS_HALF < window:
                 recent += 1
-        if recent >= p.lockout_trips:
-            self.locked = 1
+        if recent >= n_max:
+            s[_LOCKED] = 1
+
+
+if not MICROPYTHON:
+    state_names(OverVoltGuard, "st", tripped=_TRIPPED, locked=_LOCKED, below_ms=_BELOW_MS,
+                n_trips=_N_TRIPS, next=_NEXT, last_ms=_LAST_MS, trips_total=_TRIPS_TOTAL,
+                ramp=_RAMP, soft=_SOFT, dump=_DUMP)
+    state_names(OverVoltGuard, "cfg", soft_span_mv=_C_SOFT_SPAN_MV)

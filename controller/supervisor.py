@@ -15,23 +15,73 @@
 #  5. Supercap: backs off at a floor _CAP_FLOOR_MV higher, so it yields first as the drive
 #     slows and takes what the battery leaves.
 #  With MPPT the floor is the hill-climbing setpoint instead of the profile's fixed floor.
-from controller.compat import TICKS_MASK, const, micropython
+from array import array
+
+from controller.compat import MICROPYTHON, const, micropython
 from controller.leadacid import LeadAcidCharger
 from controller.mppt import HillClimb
 from controller.overvolt import OverVoltGuard
-from controller.signals import (
-    DUTY_MAX, F_BATT_SENSOR, F_BUS_SENSOR, F_CAP_SENSOR, F_OVP, F_OVP_LOCKOUT, F_USB_SENSOR,
-    ST_BLOCKED, Commands, Measurements,
-)
+from controller.signals import Commands, Measurements
 from controller.supercap import CapClamp
 from controller.usbport import UsbPort
+
+if not MICROPYTHON:  # on a board the viper compiler reads ptr32() itself
+    from controller.compat import ptr32, state_names
 
 _NEG_MV = const(-500)  # a voltage reading may sit this far below zero (offset, noise)
 _CAP_FLOOR_MV = const(500)  # the supercap backs off this far above the battery's floor
 _TICKS_HALF = const(0x20000000)  # compat._TICKS_HALF
+_TICKS_MASK = const(0x3FFFFFFF)  # compat.TICKS_MASK
 _DT_MAX_PERIODS = const(4)  # a late tick counts as at most this many periods
 _XCHK_MV = const(300)  # a buck delivering current from a bus this far below its output ...
 _XCHK_MA = const(200)  # ... at more than this is physically impossible: the bus reading lies
+_S_HALF = const(0x20000000)  # sign restore of a ptr32 load (compat.py, viper state)
+_S_MASK = const(0x3FFFFFFF)
+
+# signals' codes, repeated as consts: viper code sees a const as a machine int, an imported
+# name as an object (tests/controller/test_compat.py holds every repeated const equal)
+_DUTY_MAX = const(10000)
+_ST_BLOCKED = const(0)
+_F_OVP = const(1)
+_F_OVP_LOCKOUT = const(2)
+_F_BUS_SENSOR = const(4)
+_F_BATT_SENSOR = const(8)
+_F_CAP_SENSOR = const(32)
+_F_USB_SENSOR = const(64)
+# the slots the tick reads from its parts' state arrays (their modules' _NAME, same test)
+_OVP_TRIPPED = const(0)  # overvolt._TRIPPED
+_OVP_LOCKED = const(1)  # overvolt._LOCKED
+_OVP_DUMP = const(9)  # overvolt._DUMP
+_USB_CONV = const(1)  # usbport._CONV
+_USB_ON = const(2)  # usbport._ON
+_USB_PROBE = const(3)  # usbport._PROBE
+_USB_MATCH = const(5)  # usbport._MATCH
+_USB_FAULT = const(7)  # usbport._FAULT
+_CH_STAGE = const(0)  # leadacid._STAGE
+_CH_BLOCKED = const(1)  # leadacid._BLOCKED
+_CH_FAULT = const(2)  # leadacid._FAULT
+_CAP_FAULT = const(1)  # supercap._FAULT
+_CAP_BAL_MASK = const(2)  # supercap._BAL_MASK
+
+# state slots of Supervisor.st (array('i')); the host names them (end of file)
+_LAST_MS = const(0)  # last_ms: now_ms of the previous tick
+_BUS_LIE = const(1)  # bus_lie: 1 after the bus reading contradicted a running converter,
+# until it reads above the battery and the bank again (a stuck-low bus sensor)
+_LIE_MV = const(2)  # lie_mv: the bus reading when it last contradicted a converter, mV
+# (signed slot)
+# profile slots of Supervisor.cfg (array('i'))
+_C_DT_MAX_MS = const(0)  # dt_max_ms: a late tick counts as at most this, ms
+_C_BUS_FS_MV = const(1)  # sensor full scales: a reading outside [-neg, full scale] is
+_C_BATT_FS_MV = const(2)  # implausible (one full scale for every current sensor)
+_C_FS_MA = const(3)
+_C_CAP_FS_MV = const(4)
+_C_VBUS_FS_MV = const(5)
+_C_LINE_FS_MV = const(6)
+_C_TAP_TOP_MV = const(7)  # 2 x cap_cell_rating_mv: a cell tap reading above is implausible
+_C_TRIP_MV = const(8)  # ovp_trip_mv
+_C_RECOVER_MV = const(9)  # ovp_recover_mv
+_C_FLOOR_MV = const(10)  # floor_mv
+_C_MPPT = const(11)  # 1: MPPT sets the floor
 
 
 class Supervisor:
@@ -44,57 +94,87 @@ class Supervisor:
         self.usb = UsbPort(p)
         self.ovp = OverVoltGuard(p)
         self.mppt = HillClimb(p) if p.mppt else None
-        self.last_ms = 0  # now_ms of the previous tick
         self.ticks = 0  # ticks run, wrapping from 2**30 - 1 to 1 (0 only before the first)
-        self.dt_max_ms = _DT_MAX_PERIODS * p.period_ms
-        self.bus_lie = 0  # 1 after the bus reading contradicted a running converter, until
-        # it reads above the battery and the bank again (a stuck-low bus sensor)
-        self.lie_mv = 0  # the bus reading when it last contradicted a converter, mV
+        self.st = array("i", [0, 0, 0])  # last_ms, bus_lie, lie_mv (slots above)
+        self.cfg = array("i", [_DT_MAX_PERIODS * p.period_ms, p.bus_fs_mv, p.batt_fs_mv,
+                               p.batt_fs_ma, p.cap_fs_mv, p.vbus_fs_mv, p.line_fs_mv,
+                               2 * p.cap_cell_rating_mv, p.ovp_trip_mv, p.ovp_recover_mv,
+                               p.floor_mv, 1 if p.mppt else 0])
 
-    @micropython.native
-    def tick(self, now_ms):
+    @micropython.viper
+    def tick(self, now_ms: int):
         """Run one control period on self.m; results in self.c. Integer-only, allocates
         nothing, raises nothing."""
-        p = self.p
+        s = ptr32(self.st)
+        cfg = ptr32(self.cfg)
         m = self.m
         c = self.c
-        ticks = self.ticks
+        ticks = int(self.ticks)
         dt = 0
         if ticks:
             # compat.ticks_diff written out: on a board the call costs more than the sum
-            dt = ((now_ms - self.last_ms + _TICKS_HALF) & TICKS_MASK) - _TICKS_HALF
+            dt = ((now_ms - s[_LAST_MS] + _TICKS_HALF) & _TICKS_MASK) - _TICKS_HALF
             if dt < 0:
                 dt = 0
-            elif dt > self.dt_max_ms:
-                dt = self.dt_max_ms
-        self.last_ms = now_ms
-        self.ticks = ticks + 1 if ticks < TICKS_MASK else 1  # stays a small int
+            elif dt > cfg[_C_DT_MAX_MS]:
+                dt = cfg[_C_DT_MAX_MS]
+        s[_LAST_MS] = now_ms & _TICKS_MASK  # (dt reads it modulo the period only: a caller's
+        # unmasked clock still fits the slot)
+        self.ticks = ticks + 1 if ticks < _TICKS_MASK else 1  # stays a small int
 
         fault = 0
-        bus = m.bus_mv
-        fs_ma = p.batt_fs_ma  # one full scale for every current sensor
-        src = m.src_ma
-        if bus < _NEG_MV or bus > p.bus_fs_mv or src < -fs_ma or src > fs_ma:
-            fault = F_BUS_SENSOR
-            if bus > p.bus_fs_mv:
-                bus = p.ovp_trip_mv  # an over-range bus is treated as a trip
+        bus = int(m.bus_mv)
+        fs_ma = cfg[_C_FS_MA]  # one full scale for every current sensor
+        src = int(m.src_ma)
+        batt_mv = int(m.batt_mv)
+        batt_ma = int(m.batt_ma)
+        cap_mv = int(m.cap_mv)
+        cap_ma = int(m.cap_ma)
+        if bus < _NEG_MV or bus > cfg[_C_BUS_FS_MV] or src < -fs_ma or src > fs_ma:
+            fault = _F_BUS_SENSOR
+            if bus > cfg[_C_BUS_FS_MV]:
+                bus = cfg[_C_TRIP_MV]  # an over-range bus is treated as a trip
             elif bus < _NEG_MV:
-                bus = p.ovp_recover_mv  # bus unknown: no trip, and no time below recovery
-        elif self._bus_contradicted():
-            fault = F_BUS_SENSOR
-            if bus < p.ovp_trip_mv:  # a suspect reading proves no low bus; a high one trips
-                bus = p.ovp_recover_mv
+                bus = cfg[_C_RECOVER_MV]  # bus unknown: no trip, and no time below recovery
+        else:
+            # The bus cross-check: a buck cannot push current into a store that sits above
+            # its input, so a bus reading below the battery (or bank) while that converter
+            # runs and current flows is wrong. Latched until the bus reads above both stores
+            # again (a stuck-low bus sensor would otherwise let the converters restart every
+            # other tick), or until no current flows into either store and the reading has
+            # moved from where it lied (then a low bus contradicts nothing: a source that
+            # stopped, read once with a lagging current sample, must not keep the battery's
+            # loads off; a stuck sensor reads the same value on and on). Only plausible
+            # readings may contradict the bus: an implausible one is its own fault.
+            # (the sums are on the plausible bus: an implausible store reading near a 32-bit
+            # board's word limit must not wrap them)
+            b = bus + _XCHK_MV
+            if ((int(c.batt_duty) and _XCHK_MA < batt_ma <= fs_ma
+                 and b < batt_mv <= cfg[_C_BATT_FS_MV])
+                    or (int(c.cap_duty) and _XCHK_MA < cap_ma <= fs_ma
+                        and b < cap_mv <= cfg[_C_CAP_FS_MV])):
+                s[_BUS_LIE] = 1
+                s[_LIE_MV] = bus
+            elif s[_BUS_LIE] and ((bus - _XCHK_MV > batt_mv and bus - _XCHK_MV > cap_mv)
+                                  or (batt_ma <= _XCHK_MA and cap_ma <= _XCHK_MA
+                                      and bus != ((s[_LIE_MV] + _S_HALF) & _S_MASK) - _S_HALF)):
+                s[_BUS_LIE] = 0
+            if s[_BUS_LIE]:
+                fault = _F_BUS_SENSOR
+                if bus < cfg[_C_TRIP_MV]:  # a suspect reading proves no low bus; a high one
+                    bus = cfg[_C_RECOVER_MV]  # trips
         ovp = self.ovp
-        ovp.update(bus, dt, now_ms, m.reset_req)
-        if ovp.tripped:
-            fault |= F_OVP
-        if ovp.locked:
-            fault |= F_OVP_LOCKOUT
-        dump = ovp.dump  # full while latched, stepping down after
-        if self.bus_lie:
+        ovp.update(bus, dt, now_ms, int(m.reset_req))
+        g = ptr32(ovp.st)
+        if g[_OVP_TRIPPED]:
+            fault |= _F_OVP
+        if g[_OVP_LOCKED]:
+            fault |= _F_OVP_LOCKOUT
+        dump = g[_OVP_DUMP]  # full while latched, stepping down after
+        if s[_BUS_LIE]:
             # the bus reading is known false and the safe state takes every load off the
             # source: the dump load holds it instead (an unloaded generator rises to its clamp)
-            dump = DUTY_MAX
+            dump = _DUTY_MAX
 
         if fault:
             c.dump_duty = dump
@@ -102,99 +182,79 @@ class Supervisor:
             self.clamp.block()
             self.usb.block()
             c.set_safe()
-            c.stage = ST_BLOCKED
+            c.stage = _ST_BLOCKED
             c.usb_match = 0
             c.fault = fault
             return
 
-        floor = p.floor_mv
-        mppt = self.mppt
-        if mppt is not None:
-            floor = mppt.update(bus, src, dt)
-            d = mppt.dump_duty(bus)
+        floor = cfg[_C_FLOOR_MV]
+        if cfg[_C_MPPT]:
+            mppt = self.mppt
+            floor = int(mppt.update(bus, src, dt))
+            d = int(mppt.dump_duty(bus))
             if d > dump:
                 dump = d
         c.dump_duty = dump
 
         # USB
         usb = self.usb
-        v = m.usb_vbus_mv
-        fs = p.line_fs_mv
-        dp = m.usb_dp_mv
-        dm = m.usb_dm_mv
-        if (v < _NEG_MV or v > p.vbus_fs_mv or dp < _NEG_MV or dp > fs or dm < _NEG_MV
+        v = int(m.usb_vbus_mv)
+        fs = cfg[_C_LINE_FS_MV]
+        dp = int(m.usb_dp_mv)
+        dm = int(m.usb_dm_mv)
+        if (v < _NEG_MV or v > cfg[_C_VBUS_FS_MV] or dp < _NEG_MV or dp > fs or dm < _NEG_MV
                 or dm > fs):
-            fault |= F_USB_SENSOR
+            fault |= _F_USB_SENSOR
             usb.block()
+            u = ptr32(usb.st)
         else:
             usb.update(m, dt)
-            fault |= usb.fault
-        c.usb_conv = usb.conv
-        c.usb_on = usb.on
-        c.usb_probe = usb.probe
-        c.usb_match = usb.match
+            u = ptr32(usb.st)
+            fault |= u[_USB_FAULT]
+        c.usb_conv = u[_USB_CONV]
+        c.usb_on = u[_USB_ON]
+        c.usb_probe = u[_USB_PROBE]
+        c.usb_match = u[_USB_MATCH]
 
         # battery
         charger = self.charger
-        v = m.batt_mv
-        fs = p.batt_fs_mv
-        i = m.batt_ma
-        if v < -fs or v > fs or i < -fs_ma or i > fs_ma:
-            fault |= F_BATT_SENSOR
+        ch = ptr32(charger.st)
+        fs = cfg[_C_BATT_FS_MV]
+        if batt_mv < -fs or batt_mv > fs or batt_ma < -fs_ma or batt_ma > fs_ma:
+            fault |= _F_BATT_SENSOR
             c.batt_duty = charger.block()
             c.batt_out = 0
         else:
-            c.batt_out = charger.discharge(v)
+            c.batt_out = charger.discharge(batt_mv)
             c.batt_duty = charger.update(m, dt, floor)
-            fault |= charger.fault
-        c.stage = ST_BLOCKED if charger.blocked else charger.stage
+            fault |= ch[_CH_FAULT]
+        c.stage = _ST_BLOCKED if ch[_CH_BLOCKED] else ch[_CH_STAGE]
 
         # supercap
         clamp = self.clamp
-        v = m.cap_mv
-        i = m.cap_ma
-        if (v < _NEG_MV or v > p.cap_fs_mv or i < -fs_ma or i > fs_ma
-                or (m.n_taps and self._taps_implausible())):
-            fault |= F_CAP_SENSOR
+        k = ptr32(clamp.st)
+        if (cap_mv < _NEG_MV or cap_mv > cfg[_C_CAP_FS_MV] or cap_ma < -fs_ma or cap_ma > fs_ma
+                or (int(m.n_taps) and int(self._taps_implausible()))):
+            fault |= _F_CAP_SENSOR
             c.cap_duty = clamp.block()
         else:
             c.cap_duty = clamp.update(m, floor + _CAP_FLOOR_MV)
-            fault |= clamp.fault
-        c.bal_mask = clamp.bal_mask
+            fault |= k[_CAP_FAULT]
+        c.bal_mask = k[_CAP_BAL_MASK]
         c.fault = fault
 
-    @micropython.native
-    def _bus_contradicted(self):
-        """A buck cannot push current into a store that sits above its input: a bus reading
-        below the battery (or bank) while that converter runs and current flows is wrong.
-        Latched until the bus reads above both stores again (a stuck-low bus sensor would
-        otherwise let the converters restart every other tick), or until no current flows into
-        either store and the reading has moved from where it lied (then a low bus contradicts
-        nothing: a source that stopped, read once with a lagging current sample, must not keep
-        the battery's loads off; a stuck sensor reads the same value on and on)."""
+    @micropython.viper
+    def _taps_implausible(self) -> int:
         m = self.m
-        c = self.c
-        p = self.p
-        b = m.bus_mv + _XCHK_MV
-        # only plausible readings may contradict the bus: an implausible one is its own fault
-        bus = m.bus_mv
-        if ((c.batt_duty and _XCHK_MA < m.batt_ma <= p.batt_fs_ma
-             and b < m.batt_mv <= p.batt_fs_mv)
-                or (c.cap_duty and _XCHK_MA < m.cap_ma <= p.batt_fs_ma
-                    and b < m.cap_mv <= p.cap_fs_mv)):
-            self.bus_lie = 1
-            self.lie_mv = bus
-        elif self.bus_lie and ((bus > m.batt_mv + _XCHK_MV and bus > m.cap_mv + _XCHK_MV)
-                               or (m.batt_ma <= _XCHK_MA and m.cap_ma <= _XCHK_MA
-                                   and bus != self.lie_mv)):
-            self.bus_lie = 0
-        return self.bus_lie
-
-    @micropython.native
-    def _taps_implausible(self):
-        m = self.m
-        top = 2 * self.p.cap_cell_rating_mv
-        for i in range(m.n_taps):
-            if m.cell_mv[i] < _NEG_MV or m.cell_mv[i] > top:
+        cells = m.cell_mv
+        top = ptr32(self.cfg)[_C_TAP_TOP_MV]
+        for i in range(int(m.n_taps)):
+            v = int(cells[i])
+            if v < _NEG_MV or v > top:
                 return 1
         return 0
+
+
+if not MICROPYTHON:
+    state_names(Supervisor, "st", last_ms=_LAST_MS, bus_lie=_BUS_LIE, lie_mv=_LIE_MV)
+    state_names(Supervisor, "cfg", dt_max_ms=_C_DT_MAX_MS)

@@ -10,8 +10,14 @@
 #  - div_*: resistor dividers from VBUS giving D+/D- levels of 2.0 V or 2.7 V at VBUS 5.00 V
 #    (common practice). The windows scale with the measured VBUS (the dividers track it).
 #  - short_1v2: D+ tied to D-, biased to about 1.2 V at VBUS 5.00 V (common practice).
+from array import array
+
 from controller.compat import MICROPYTHON, const, micropython
-from controller.signals import F_USB_LINES
+
+if not MICROPYTHON:  # on a board the viper compiler reads ptr32() itself
+    from controller.compat import ptr32, state_names
+
+_F_USB_LINES = const(4096)  # signals.F_USB_LINES as a const (a machine int in viper)
 
 _M_NONE = const(0)  # usb_match: the readings match no scheme
 # usb_match for a scheme is 1 + its index in profile_fields.SCHEMES
@@ -32,8 +38,8 @@ _DAT_REF_MAX_MV = const(400)  # BC1.2 1.4.4 V_DAT_REF
 _LGC_MIN_MV = const(800)  # BC1.2 1.4.4 V_LGC
 
 
-@micropython.native
-def classify(dp_mv, dm_mv, vbus_mv, probe, tol_pct, short_mv):
+@micropython.viper
+def classify(dp_mv: int, dm_mv: int, vbus_mv: int, probe: int, tol_pct: int, short_mv: int) -> int:
     """Which scheme the data lines match (M_*). probe: 1 if the D+ probe was sourced.
     A divider level L matches within L x tol_pct / 100 around L x VBUS / 5.00 V (the dividers
     track VBUS); the windows are written out rather than called, a call costing more on a
@@ -66,72 +72,93 @@ def classify(dp_mv, dm_mv, vbus_mv, probe, tol_pct, short_mv):
     return _M_NONE
 
 
+# state slots of UsbPort.st (array('i'), all >= 0); the host names them (end of file)
+_WANT = const(0)  # want: the usb_match value the profile asks for
+_CONV = const(1)  # conv: 5 V converter enabled
+_ON = const(2)  # on: port load switch closed
+_PROBE = const(3)  # probe: D+ probe sourced by this tick's command
+_PROBE_WAS = const(4)  # probe_was: probe state while this tick's readings were taken
+_MATCH = const(5)  # match: scheme the latest readings match
+_OK_MS = const(6)  # ok_ms: how long VBUS and lines have matched, ms
+_FAULT = const(7)  # fault: this tick's fault bits (F_USB_LINES while the converter runs
+# unmatched)
+_CONV_MS = const(8)  # conv_ms: how long the converter has run, ms (capped at the debounce time)
+# profile slots of UsbPort.cfg (array('i'))
+_C_BUS_MIN_MV = const(0)
+_C_BUS_HYST_MV = const(1)
+_C_DEBOUNCE_MS = const(2)
+_C_VBUS_MIN_MV = const(3)
+_C_VBUS_MAX_MV = const(4)
+_C_TOL_PCT = const(5)
+_C_SHORT_MV = const(6)
+
+
 class UsbPort:
     def __init__(self, p):
         self.p = p
-        self.want = p.scheme + 1  # the usb_match value the profile asks for
-        self.conv = 0  # 5 V converter enabled
-        self.on = 0  # port load switch closed
-        self.probe = 0  # D+ probe sourced by this tick's command
-        self.probe_was = 0  # probe state while this tick's readings were taken
-        self.match = _M_NONE  # scheme the latest readings match
-        self.ok_ms = 0  # how long VBUS and lines have matched, ms
-        self.fault = 0  # this tick's fault bits (F_USB_LINES while the converter runs unmatched)
-        self.conv_ms = 0  # how long the converter has run, ms (capped at the debounce time)
+        self.st = array("i", [0] * 9)  # the state, slots above
+        self.st[_WANT] = p.scheme + 1
+        self.cfg = array("i", [p.usb_bus_min_mv, p.usb_bus_hyst_mv, p.usb_debounce_ms,
+                               p.vbus_min_mv, p.vbus_max_mv, p.line_tol_pct, p.short_tol_mv])
 
-    @micropython.native
+    @micropython.viper
     def block(self):
-        self.conv = 0
-        self.conv_ms = 0
-        self.on = 0
-        self.probe = 0
-        self.probe_was = 0
-        self.ok_ms = 0
-        self.match = _M_NONE
+        s = ptr32(self.st)
+        s[_CONV] = 0
+        s[_CONV_MS] = 0
+        s[_ON] = 0
+        s[_PROBE] = 0
+        s[_PROBE_WAS] = 0
+        s[_OK_MS] = 0
+        s[_MATCH] = _M_NONE
 
-    @micropython.native
-    def update(self, m, dt_ms):
-        p = self.p
-        b = m.bus_mv
-        conv = self.conv
+    @micropython.viper
+    def update(self, m, dt_ms: int):
+        s = ptr32(self.st)
+        cfg = ptr32(self.cfg)
+        b = int(m.bus_mv)
+        conv = s[_CONV]
         if conv:
-            if b < p.usb_bus_min_mv - p.usb_bus_hyst_mv:
+            if b < cfg[_C_BUS_MIN_MV] - cfg[_C_BUS_HYST_MV]:
                 conv = 0
-        elif b >= p.usb_bus_min_mv:
+        elif b >= cfg[_C_BUS_MIN_MV]:
             conv = 1
-        self.conv = conv
-        deb = p.usb_debounce_ms
+        s[_CONV] = conv
+        deb = cfg[_C_DEBOUNCE_MS]
         conv_ms = 0
         if conv:
-            conv_ms = self.conv_ms
+            conv_ms = s[_CONV_MS]
             if conv_ms < deb:
                 conv_ms += dt_ms
-        self.conv_ms = conv_ms
-        vbus = m.usb_vbus_mv
-        match = classify(m.usb_dp_mv, m.usb_dm_mv, vbus, self.probe_was, p.line_tol_pct,
-                         p.short_tol_mv)
-        self.match = match
-        want = self.want
-        on = self.on
-        if conv and p.vbus_min_mv <= vbus <= p.vbus_max_mv and match == want:
-            ok_ms = self.ok_ms
+        s[_CONV_MS] = conv_ms
+        vbus = int(m.usb_vbus_mv)
+        match = int(classify(int(m.usb_dp_mv), int(m.usb_dm_mv), vbus, s[_PROBE_WAS],
+                             cfg[_C_TOL_PCT], cfg[_C_SHORT_MV]))
+        s[_MATCH] = match
+        want = s[_WANT]
+        on = s[_ON]
+        if conv and cfg[_C_VBUS_MIN_MV] <= vbus <= cfg[_C_VBUS_MAX_MV] and match == want:
+            ok_ms = s[_OK_MS]
             if ok_ms < deb:
                 ok_ms += dt_ms  # stops counting once on: stays a small int
-                self.ok_ms = ok_ms
+                s[_OK_MS] = ok_ms
             if ok_ms >= deb:
                 on = 1
-            self.fault = 0
+            s[_FAULT] = 0
         else:
-            self.ok_ms = 0
+            s[_OK_MS] = 0
             on = 0
             # a fault once the converter has run for the debounce time: not while it starts
-            self.fault = F_USB_LINES if conv_ms >= deb else 0
-        self.on = on
+            s[_FAULT] = _F_USB_LINES if conv_ms >= deb else 0
+        s[_ON] = on
         probe = 1 if (want == _M_DCP and conv and not on) else 0
-        self.probe = probe
-        self.probe_was = probe
+        s[_PROBE] = probe
+        s[_PROBE_WAS] = probe
 
 
 if not MICROPYTHON:  # the host's names: M_* match codes and MATCH_NAMES
     from controller import usbport_host as _host
     _host.publish(globals())
+    state_names(UsbPort, "st", want=_WANT, conv=_CONV, on=_ON, probe=_PROBE,
+                probe_was=_PROBE_WAS, match=_MATCH, ok_ms=_OK_MS, fault=_FAULT,
+                conv_ms=_CONV_MS)

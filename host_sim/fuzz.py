@@ -31,27 +31,50 @@ def _no_cap_clamp():
     orig = supercap.CapClamp.update
 
     def update(self, m, floor_mv):
-        p = self.p
-        saved = p.cap_clamp_mv
-        p.cap_clamp_mv = p.cap_fs_mv  # the clamp ignored: charge on to the sensor's full scale
+        cfg = self.cfg  # the profile numbers the tick reads (array slots)
+        saved = cfg[supercap._C_CLAMP_MV]
+        # the clamp ignored: charge on to the sensor's full scale
+        cfg[supercap._C_CLAMP_MV] = self.p.cap_fs_mv
         try:
             return orig(self, m, floor_mv)
         finally:
-            p.cap_clamp_mv = saved
+            cfg[supercap._C_CLAMP_MV] = saved
 
     supercap.CapClamp.update = update
     return lambda: setattr(supercap.CapClamp, "update", orig)
 
 
 def _raised_ceiling():
-    from controller import leadacid
-    orig = leadacid.ceiling_mv
+    from controller import leadacid as la
+    orig = la.ceiling_mv
+    orig_update = la.LeadAcidCharger.update
+    # the tick's ceiling is min(setpoint + compensation, cap) from the profile slots: raising
+    # both by the same step raises the ceiling by it, as ceiling_mv() + step does
+    slots = (la._C_ABS_MV, la._C_FLOAT_MV, la._C_EQ_MV, la._C_ABS_TOP_MV, la._C_FLOAT_TOP_MV,
+             la._C_EQ_TOP_MV)
 
     def ceiling_mv(p, stage, temp_dc):
         return orig(p, stage, temp_dc) + 250 * p.cells  # +1.5 V per 12 V block
 
-    leadacid.ceiling_mv = ceiling_mv
-    return lambda: setattr(leadacid, "ceiling_mv", orig)
+    def update(self, m, dt_ms, floor_mv):
+        cfg = self.cfg
+        saved = [cfg[i] for i in slots]
+        for i in slots:
+            if i != la._C_EQ_MV or cfg[i]:  # (0: equalize not allowed, and stays so)
+                cfg[i] += 250 * self.p.cells
+        try:
+            return orig_update(self, m, dt_ms, floor_mv)
+        finally:
+            for i, v in zip(slots, saved):
+                cfg[i] = v
+
+    def undo():
+        la.ceiling_mv = orig
+        la.LeadAcidCharger.update = orig_update
+
+    la.ceiling_mv = ceiling_mv
+    la.LeadAcidCharger.update = update
+    return undo
 
 
 def _no_ovp():

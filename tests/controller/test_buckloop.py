@@ -283,3 +283,26 @@ def test_regression_a_surge_runs_a_weak_bus_up():
         "surge_runs_a_weak_bus_up.json"
     res = runner.run(load_scenario(str(path)), progress=False)
     assert res.limits["batt_current"].held, res.limits["batt_current"].as_dict()
+
+
+@pytest.mark.parametrize("bus_mv", [0, 1, -200, -480])
+def test_a_bus_read_at_or_below_0v_stops_the_converter(bus_mv):
+    """Invariant (buckloop.py, off): a bus read at or below 0 V (a stopped source, a sensor
+    offset) has nothing to convert: duty 0, never negative, and no division by zero whatever
+    the store reads (the golden check found a bank read at -0.4 V over a 0 mV bus dividing by
+    zero, and a bus read below 0 V giving a negative duty)."""
+    for cap_mv in (-500, -400, -300, 0, 1000):
+        b = BuckLoop()
+        for last_bus_mv in (bus_mv - 300, bus_mv, bus_mv + 300):
+            b.update(cap_mv, 14400, 0, 1000, last_bus_mv, 9000, BIG_MV, 1)
+        assert b.update(cap_mv, 14400, 900, 1000, bus_mv, 9000, BIG_MV, 1) == 0
+        assert b.duty == 0
+
+
+def test_the_tick_raises_nothing_on_a_dead_bus_under_a_bank_read_below_0v():
+    """Regression (golden check, viper merge): a fresh supervisor reading a 0 mV bus and a
+    bank at -0.4 V (inside its plausible range) raised ZeroDivisionError in the tick."""
+    from ctl_bench import Bench, build, doc_with
+    b = Bench(build(doc_with()), bus_mv=0, cap_mv=-400, cap_ma=0)
+    c = b.run(3)
+    assert c.cap_duty == 0 and c.batt_duty == 0

@@ -63,3 +63,45 @@ def test_to_int_rounds_half_away_from_zero(value, scale, want):
 
 def test_config_error_is_a_value_error():
     assert issubclass(compat.ConfigError, ValueError)
+
+
+# --- viper state: consts repeated across modules, and the host's slot names --------------------
+def _repeated_consts():
+    """(module, private name, the value it repeats) for every const a tick module repeats from
+    another module (viper code sees a const as a machine int, an imported name as an object)."""
+    from controller import (buckloop, leadacid, mppt, overvolt, signals, supercap, supervisor,
+                            usbport)
+    out = []
+    for mod in (buckloop, leadacid, mppt, overvolt, supercap, supervisor, usbport):
+        for name in ("DUTY_MAX", "ST_BLOCKED", "ST_BULK", "ST_ABSORPTION", "ST_FLOAT",
+                     "ST_EQUALIZE", "F_OVP", "F_OVP_LOCKOUT", "F_BUS_SENSOR", "F_BATT_SENSOR",
+                     "F_TEMP_SENSOR", "F_CAP_SENSOR", "F_USB_SENSOR", "F_BATT_ABSENT",
+                     "F_BATT_REVERSED", "F_TEMP_WINDOW", "F_BATT_OVER", "F_CAP_CELL",
+                     "F_USB_LINES"):
+            if hasattr(mod, "_" + name):
+                out.append((mod.__name__, "_" + name, getattr(signals, name)))
+    for mod in (leadacid, supercap):  # the buck loop's slots, written out where it is stopped
+        out += [(mod.__name__, "_L_U", buckloop._U), (mod.__name__, "_L_DUTY", buckloop._DUTY),
+                (mod.__name__, "_L_BUS_LAST", buckloop._BUS_LAST)]
+    parts = {"_OVP_": overvolt, "_USB_": usbport, "_CH_": leadacid, "_CAP_": supercap}
+    for name in dir(supervisor):
+        for prefix, mod in parts.items():
+            if name.startswith(prefix) and name != "_CAP_FLOOR_MV":
+                out.append(("controller.supervisor", name, getattr(mod, "_" + name[len(prefix):])))
+    out.append(("controller.supervisor", "_TICKS_MASK", compat.TICKS_MASK))
+    out.append(("controller.overvolt", "_TICKS_MASK", compat.TICKS_MASK))
+    return out
+
+
+@pytest.mark.parametrize("module, name, value", _repeated_consts())
+def test_every_repeated_const_equals_its_source(module, name, value):
+    import importlib
+    assert getattr(importlib.import_module(module), name) == value
+
+
+@pytest.mark.parametrize("value", [-(2 ** 29), -123456, -1, 0, 1, 2 ** 29 - 1])
+def test_the_sign_restore_idiom_reads_back_a_zero_extended_slot(value):
+    # a ptr32 load on a 64-bit port zero-extends; the idiom restores the sign (compat.py)
+    half, mask = 0x20000000, 0x3FFFFFFF
+    for loaded in (value, value & 0xFFFFFFFF):  # a 32-bit board's load, a 64-bit port's
+        assert ((loaded + half) & mask) - half == value

@@ -378,3 +378,26 @@ def test_timers_identical_when_the_clock_wraps_mid_absorption():
     assert stages[39] == ST_BULK and stages[100] == ST_ABSORPTION and stages[-1] == ST_FLOAT
     assert runs[1][99][3] == 59 * 50  # absorption timer ran straight through the wrap
     assert all(0 <= t[0] <= DUTY_MAX for t in runs[1])
+
+
+@pytest.mark.parametrize("chem", ["agm", "flooded"])
+def test_the_tick_ceiling_is_ceiling_mv_at_every_stage_and_temperature(chem):
+    # LeadAcidCharger.update works the ceiling out from its profile slots (viper code);
+    # ceiling_mv (host tools, the oracle's tests) from the Profile: the two must agree
+    from controller.leadacid import LeadAcidCharger
+    from controller.signals import Measurements
+    p = flooded(battery__charge_temp_min_c=-10) if chem == "flooded" else prof()
+    stages = [ST_BULK, ST_ABSORPTION, ST_FLOAT] + ([ST_EQUALIZE] if p.eq_cell_mv else [])
+    for stage in stages:
+        for t_dc in range(p.temp_min_dc, p.temp_max_dc + 1, 7):
+            ch = LeadAcidCharger(p)
+            ch.stage = stage
+            m = Measurements()
+            m.batt_temp_dc = t_dc
+            m.bus_mv = 20000
+            # a voltage at which the stage holds: under "at voltage" for bulk, over re-bulk
+            m.batt_mv = p.cells * p.rebulk_cell_mv + 100
+            m.eq_req = 1 if stage == ST_EQUALIZE else 0
+            ch.update(m, 50, 9000)
+            assert ch.stage == stage and ch.fault == 0
+            assert ch.ceil_mv == ceiling_mv(p, stage, t_dc), (stage, t_dc)

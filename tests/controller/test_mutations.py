@@ -9,7 +9,12 @@ from ctl_props import Limits, check_i1, check_i2, check_i3, check_i4, check_i5, 
 from ctl_scen import run, scenario_doc, scenarios
 from hypothesis import HealthCheck, Phase, find, settings
 
+from controller.leadacid import LeadAcidCharger
 from controller.signals import F_CAP_CELL
+from controller.usbport import UsbPort
+
+# The parts copy the profile numbers their tick reads when they are built (array slots read
+# by viper code), so a mutation that changes the profile builds the part again from it.
 
 
 def raised_ceiling(sup):
@@ -19,7 +24,7 @@ def raised_ceiling(sup):
     p.float_cell_mv += 150
     if p.eq_cell_mv:
         p.eq_cell_mv += 150
-    sup.charger.p = p
+    sup.charger = LeadAcidCharger(p)
 
 
 def guard_skipped(sup):
@@ -45,21 +50,21 @@ def window_removed(sup):
     """The charging temperature window opened to the sensor's whole range."""
     p = copy.copy(sup.p)
     p.temp_min_dc, p.temp_max_dc = -400, 850
-    sup.charger.p = p
+    sup.charger = LeadAcidCharger(p)
 
 
 def port_check_loosened(sup):
     """No debounce, and a VBUS window of 4.0-6.0 V."""
     p = copy.copy(sup.p)
     p.usb_debounce_ms, p.vbus_min_mv, p.vbus_max_mv = 0, 4000, 6000
-    sup.usb.p = p
+    sup.usb = UsbPort(p)
 
 
 def battery_range_removed(sup):
     """The supervisor's battery voltage plausibility check sees a 1 kV sensor."""
     p = copy.copy(sup.p)
     p.batt_fs_mv = 1_000_000
-    sup.p = p
+    sup.__init__(p)  # the supervisor keeps its sensor ranges too: build it again on p
 
 
 MUTATIONS = [

@@ -9,6 +9,8 @@ A failure prints the Scenario(...) to paste into a regression test and the repro
 and leaves the failing run as files in spinrail-out/controller-failures/ (the scenario, its
 profile, and the readings as a vector CSV that `controller.replay` runs on either interpreter).
 """
+from array import array
+
 import pytest
 from ctl_bench import ROOT, write_doc
 from ctl_props import (
@@ -180,12 +182,45 @@ def test_i8_state_stays_within_the_small_int_range(scn):
         if not fields:
             for obj in controller_state(sup):
                 for name, v in vars(obj).items():
-                    if isinstance(v, (int, list)) and not isinstance(v, bool):
+                    # state and profile slots live in array('i') buffers (viper code)
+                    if isinstance(v, (int, list, array)) and not isinstance(v, bool):
                         fields.append((obj, name))
         for obj, name in fields:
             v = getattr(obj, name)
-            for x in (v if isinstance(v, list) else (v,)):
+            for x in (v if isinstance(v, (list, array)) else (v,)):
                 assert -SMALL_INT <= x < SMALL_INT, (k, type(obj).__name__, name, x)
+
+    run(scn, probe=probe)
+
+
+def signed_slots():
+    """(class name, array attribute) -> the slots the viper code reads back with the sign
+    restore (compat.py): only these may hold a negative value."""
+    from controller import buckloop, leadacid, mppt, supervisor
+    return {("BuckLoop", "st"): {buckloop._U, buckloop._DUTY, buckloop._BUS_LAST},
+            ("Supervisor", "st"): {supervisor._LIE_MV},
+            ("HillClimb", "st"): {mppt._DIR, mppt._LAST_CW},
+            ("LeadAcidCharger", "cfg"): {leadacid._C_TEMP_MIN, leadacid._C_TC_BLOCK}}
+
+
+@given(scenarios())
+def test_i8_slots_read_as_unsigned_never_go_negative(scn):
+    """I8 (DEVELOPERS.md, viper state): a ptr32 load zero-extends on a 64-bit port, so a slot
+    read without the sign restore must never hold a negative value (else the unix port and
+    CPython part ways: the loop's duty did, after a bus read below 0 V)."""
+    signed = signed_slots()
+    arrays = []  # (class name, attribute, array, slots that may be negative)
+
+    def probe(sup, k):
+        if not arrays:
+            for obj in controller_state(sup):
+                for name, v in vars(obj).items():
+                    if isinstance(v, array):
+                        cls = type(obj).__name__
+                        arrays.append((cls, name, v, signed.get((cls, name), set())))
+        for cls, name, v, may in arrays:
+            for i, x in enumerate(v):
+                assert x >= 0 or i in may, (k, cls, name, i, x)
 
     run(scn, probe=probe)
 

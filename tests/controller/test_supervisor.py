@@ -237,3 +237,24 @@ def test_a_suspect_bus_reading_at_the_trip_still_trips():
     b.run(1, batt_mv=30000)  # a battery voltage glitch, the current still reading charge
     c = b.run(1, bus_mv=24000)
     assert c.fault & F_OVP and c.dump_duty == DUTY_MAX and all_off(c)
+
+
+def test_an_unmasked_clock_gives_the_commands_of_the_masked_one():
+    # The tick reads time only modulo the clock period (wrap-safe differences). A caller that
+    # passes its clock unmasked (a replay vector's t_ms past 2**31, say) gets the same commands,
+    # and the times kept in the 32-bit state slots still fit.
+    from controller.supervisor import Supervisor
+    p = build(doc_with())
+    a, b = Supervisor(p), Supervisor(p)
+    t_ms = 2 ** 33 - 777
+    for k in range(400):
+        for sup in (a, b):
+            sup.m.bus_mv = 30000 if k % 97 < 3 else 15000 + (k % 50) * 40
+            sup.m.batt_mv = 13000
+            sup.m.batt_ma = 500
+            sup.m.usb_vbus_mv = 5000
+        a.tick(t_ms)
+        b.tick(t_ms & TICKS_MASK)
+        assert a.c.__dict__ == b.c.__dict__, k
+        t_ms += 50 if k % 13 else 5000
+    assert b.ovp.trips_total > 1
