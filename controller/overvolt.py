@@ -24,7 +24,10 @@ _RELEASE_STEP = const(1000)
 # A source the storage cannot take lifts the bus faster as the converters back off (a buck
 # draws less input current from a higher bus: a negative resistance on a soft source); a strong
 # rider took the bus from 19.5 V past the trip plus margin in two 20 ms periods. Loading it
-# before the trip keeps the latch for what the soft zone cannot hold.
+# before the trip keeps the latch for what the soft zone cannot hold. On a rising bus the zone
+# reads where the bus may be a period on (twice the last rise ahead, as the buck loop's
+# feedforward does): a crank freed of its loads went 17.6 -> 21.0 -> 28.2 V, from the bottom
+# of the zone past the trip plus margin in one period.
 _SOFT_RELEASE = const(500)
 
 
@@ -40,6 +43,7 @@ _TRIPS_TOTAL = const(6)  # trips_total: trips since start (telemetry)
 _RAMP = const(7)  # ramp: latch dump: full while latched, then stepping down by _RELEASE_STEP
 _SOFT = const(8)  # soft: soft-zone dump duty of the last period (0..DUTY_MAX)
 _DUMP = const(9)  # dump: dump duty the guard asks for: the larger of ramp and soft
+_BUS_LAST = const(10)  # bus_last_mv: the bus given last period, mV (0 for one below 0 V)
 # profile slots of OverVoltGuard.cfg (array('i'))
 _C_TRIP_MV = const(0)
 _C_RECOVER_MV = const(1)
@@ -52,7 +56,7 @@ _C_SOFT_SPAN_MV = const(5)  # soft_span_mv: recovery to trip, mV (at least 1)
 class OverVoltGuard:
     def __init__(self, p):
         self.p = p
-        self.st = array("i", [0] * 10)  # the state, slots above
+        self.st = array("i", [0] * 11)  # the state, slots above
         self.trip_at = array("i", [0] * p.lockout_trips)  # ring of recent trip times (now_ms)
         self.cfg = array("i", [p.ovp_trip_mv, p.ovp_recover_mv, p.ovp_hold_ms, p.trip_window_ms,
                                p.lockout_trips, max(1, p.ovp_trip_mv - p.ovp_recover_mv)])
@@ -97,7 +101,12 @@ class OverVoltGuard:
             ramp = 0
         s[_RAMP] = ramp
         soft = 0
-        over = bus_mv - cfg[_C_RECOVER_MV]
+        ahead = bus_mv  # where the bus may be a period on
+        last = s[_BUS_LAST]
+        if last and bus_mv > last:
+            ahead = bus_mv + ((bus_mv - last) << 1)
+        s[_BUS_LAST] = bus_mv if bus_mv > 0 else 0
+        over = ahead - cfg[_C_RECOVER_MV]
         span = cfg[_C_SOFT_SPAN_MV]
         if over >= span:
             soft = _DUTY_MAX
@@ -137,5 +146,5 @@ class OverVoltGuard:
 if not MICROPYTHON:
     state_names(OverVoltGuard, "st", tripped=_TRIPPED, locked=_LOCKED, below_ms=_BELOW_MS,
                 n_trips=_N_TRIPS, next=_NEXT, last_ms=_LAST_MS, trips_total=_TRIPS_TOTAL,
-                ramp=_RAMP, soft=_SOFT, dump=_DUMP)
+                ramp=_RAMP, soft=_SOFT, dump=_DUMP, bus_last_mv=_BUS_LAST)
     state_names(OverVoltGuard, "cfg", soft_span_mv=_C_SOFT_SPAN_MV)

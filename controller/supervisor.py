@@ -52,6 +52,7 @@ _F_USB_SENSOR = const(64)
 _OVP_TRIPPED = const(0)  # overvolt._TRIPPED
 _OVP_LOCKED = const(1)  # overvolt._LOCKED
 _OVP_DUMP = const(9)  # overvolt._DUMP
+_OVP_BUS_LAST = const(10)  # overvolt._BUS_LAST
 _USB_CONV = const(1)  # usbport._CONV
 _USB_ON = const(2)  # usbport._ON
 _USB_PROBE = const(3)  # usbport._PROBE
@@ -164,8 +165,12 @@ class Supervisor:
                 if bus < cfg[_C_TRIP_MV]:  # a suspect reading proves no low bus; a high one
                     bus = cfg[_C_RECOVER_MV]  # trips
         ovp = self.ovp
-        ovp.update(bus, dt, now_ms, int(m.reset_req))
         g = ptr32(ovp.st)
+        if fault:  # a stand-in bus value: the guard reads no rise into it, nor out of it
+            g[_OVP_BUS_LAST] = 0
+        ovp.update(bus, dt, now_ms, int(m.reset_req))
+        if fault:
+            g[_OVP_BUS_LAST] = 0
         if g[_OVP_TRIPPED]:
             fault |= _F_OVP
         if g[_OVP_LOCKED]:

@@ -290,7 +290,8 @@ def check_i5(ticks, L):
     below recovery for the hold time, then the dump load steps down to off over ten periods;
     lockout_trips trips within the window keep every output off until reset.
     Between recovery and the trip the dump load comes in in proportion at once (none at
-    recovery, full at the trip) and lets go by at most 5 % of full per period. While the
+    recovery, full at the trip; on a rising bus judged where twice the last period's rise
+    would take it) and lets go by at most 5 % of full per period. While the
     controller's cross-check holds the bus reading false, the dump load is fully on. With MPPT and an overspeed level the dump load also follows the bus above it (full over
     1 V) at once, and lets go by at most 5 % of full per period (docs/profile.md, control)."""
     o = OvpOracle(L)
@@ -298,6 +299,7 @@ def check_i5(ticks, L):
     guard_dump = 0  # what the guard asks of the dump load
     ovs_dump = 0  # what overspeed asks of it (advanced on the ticks that reach the tracker)
     soft_dump = 0  # the guard's soft zone (docs/profile.md, bus)
+    prev_gb = 0  # the bus the guard judged last period, mV (0: none, or a stand-in)
     trip_mv = math.floor(L.trip_mv + F(1, 2))  # the profile's integer mV (to_int rounding)
     rec_mv = math.floor(L.recover_mv + F(1, 2))
     span_mv = max(1, trip_mv - rec_mv)
@@ -313,7 +315,15 @@ def check_i5(ticks, L):
             gb = trip_mv
         elif gb < NEG_MV or (suspect and gb < trip_mv):
             gb = rec_mv
-        over = gb - rec_mv
+        # on a bus that rose since the last period the soft zone reads twice that rise ahead;
+        # a stand-in value (a reading out of range, or one the cross-check doubts) gives no
+        # rise, into it or out of it
+        standin = suspect or not L.bus_plausible(m)
+        ahead = gb
+        if not standin and prev_gb and gb > prev_gb:
+            ahead = gb + 2 * (gb - prev_gb)
+        prev_gb = 0 if standin else max(gb, 0)
+        over = ahead - rec_mv
         prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // span_mv)
         soft_dump = max(prop, soft_dump - SOFT_RELEASE)
         if L.overspeed_mv is not None and not c.fault & (F_BUS_SENSOR | F_OVP | F_OVP_LOCKOUT):

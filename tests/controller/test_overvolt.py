@@ -155,3 +155,36 @@ def test_trips_one_full_clock_period_old_do_not_count():
     g.step(20000, n=quiet // 1000, dt_ms=1000)
     g.step(TRIP_MV, dt_ms=1000)
     assert g.g.locked == 0
+
+
+def test_on_a_rising_bus_the_soft_zone_reads_twice_the_rise_ahead():
+    """Invariant (overvolt.py, soft zone): the zone's dump is in proportion to where the bus
+    would be with twice the last period's rise added (recovery 21 V: none; trip 24 V: full);
+    on a steady or falling bus, to the bus itself."""
+    g = Guard()
+    g.step(18000)
+    assert g.step(18000).dump == 0  # steady, under recovery
+    # 18 -> 20 V: 24 V ahead, the trip: full, though the bus is under recovery
+    assert g.step(20000).dump == 10000
+    g = Guard()
+    g.step(20000)
+    # 20 -> 21.5 V: 24.5 V ahead: full; the same 21.5 V steady reads a sixth of the zone
+    assert g.step(21500).dump == 10000
+    g = Guard()
+    g.step(21500)
+    assert g.step(21500).dump == (500 * 10000) // 3000
+
+
+def test_regression_a_crank_freed_of_its_loads_is_caught_in_the_soft_zone():
+    """Regression (fuzz seed 53, example 1687): after a trip, a strong crank lost its battery
+    and bank loads within two periods; its bus went 17.6 -> 21.0 -> 28.2 V, from the bottom
+    of the soft zone past the trip plus margin in one period (the zone judged 21.0 V: no dump).
+    Invariant: the bus holds its limit."""
+    from pathlib import Path
+
+    from host_sim import runner
+    from host_sim.scenario import load_scenario
+    path = Path(__file__).resolve().parents[1] / "plant" / "regressions" / \
+        "crank_freed_of_its_loads.json"
+    res = runner.run(load_scenario(str(path)), progress=False)
+    assert res.limits["bus"].held, res.limits["bus"].as_dict()
