@@ -57,3 +57,64 @@ def effort_max(p_drive_w, power_start_w, margin=MARGIN):
     """The largest effort (the drive's scale on its power curve) a person with this fresh power
     may have so their best, effort x power_start_w, stays within margin x what the dump holds."""
     return margin * p_drive_w / power_start_w
+
+
+# Wind: the same balance on the plant's rotor curve. The turbulence is a unit-variance series
+# scaled by the turbulence intensity (host_sim/plant/drive.py Wind), so the wind reaches
+# mean x (1 + 3 TI) at its three-sigma peaks, plus any gust on top; a peak lasts seconds
+# (the series' time constant), long enough for the rotor to follow it.
+TURB_SIGMAS = 3.0
+
+
+def wind_hold(trip_v, doc):
+    """The steady wind speed, m/s, at which the rotor turning at the speed of the bus limit
+    gives just what the full dump absorbs there (dump_hold). A stronger wind, held, holds the
+    bus above the limit. doc: a resolved scenario document with a wind drive."""
+    from host_sim.plant.drive import cp_coeffs
+    p_drive_w, rotor_rpm = dump_hold(trip_v, doc)
+    d = doc["drive"]
+    w_r = rotor_rpm * 2.0 * math.pi / 60.0  # rotor speed, rad/s
+    a, b, c = cp_coeffs()(d["runaway_ratio"])
+    r = d["rotor_radius_m"]
+    kq = 0.5 * d["air_density"] * math.pi * r ** 3 * d["cp_max"] / d["tsr_opt"]
+
+    def p_rotor_w(v):
+        x = w_r * r / (v * d["tsr_opt"])
+        return kq * v * v * (a + x * (b + c * x)) * w_r
+
+    # at a fixed rotor speed the rotor's power rises with the wind: bisect
+    lo, hi = 0.1, 100.0
+    if p_rotor_w(hi) < p_drive_w:
+        return hi
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        if p_rotor_w(mid) < p_drive_w:
+            lo = mid
+        else:
+            hi = mid
+    return 0.5 * (lo + hi)
+
+
+def gust_peak_ms(gusts):
+    """The largest sum of the gusts' raised-cosine pulses at any one time, m/s."""
+    if not gusts:
+        return 0.0
+    t0 = min(gu["t_s"] for gu in gusts)
+    t1 = max(gu["t_s"] + gu["duration_s"] for gu in gusts)
+    peak = 0.0
+    n = 2000
+    for k in range(n + 1):
+        t = t0 + (t1 - t0) * k / n
+        s = 0.0
+        for gu in gusts:
+            x = (t - gu["t_s"]) / gu["duration_s"]
+            if 0.0 <= x <= 1.0:
+                s += gu["peak_ms"] * 0.5 * (1.0 - math.cos(2.0 * math.pi * x))
+        peak = max(peak, s)
+    return peak
+
+
+def wind_mean_max(v_hold_ms, turbulence_pct, gust_ms):
+    """The strongest mean wind whose three-sigma turbulence peak plus gusts stays within
+    MARGIN x the wind the dump holds."""
+    return (MARGIN * v_hold_ms - gust_ms) / (1.0 + TURB_SIGMAS * turbulence_pct / 100.0)

@@ -20,6 +20,22 @@ def base_doc(name):
 
 
 @functools.lru_cache(maxsize=None)
+def _wind_hold(name):
+    from host_sim import envelope
+    from host_sim.scenario import load_scenario
+    sc = load_scenario(name)
+    return (envelope.wind_hold(sc.profile.ovp_trip_mv / 1000.0, sc.doc),
+            envelope.gust_peak_ms(sc.doc["drive"]["gusts"]))
+
+
+def wind_mean_hi(name, turbulence_pct):
+    """The strongest mean wind the base's dump load holds at this turbulence (envelope.py)."""
+    from host_sim import envelope
+    v_hold, gust_ms = _wind_hold(name)
+    return envelope.wind_mean_max(v_hold, turbulence_pct, gust_ms)
+
+
+@functools.lru_cache(maxsize=None)
 def effort_hi(name):
     """The strongest effort the base's dump load holds at the trip (host_sim/envelope.py: the
     rider's best, effort x fresh power, within 90 % of what the full dump absorbs at the bus
@@ -127,11 +143,14 @@ def scenario_docs(draw, max_duration_s=90.0, events=True):
         if draw(st.booleans()):
             d["reversals_s"] = [round(draw(st.floats(1.0, dur - 1.0)), 1)]
     elif d["kind"] == "wind":
-        # the hut's 1 ohm dump load holds the rotor up to about 9 m/s mean wind with its gusts;
-        # above that a real turbine must furl or brake (the bus limit then crosses in
-        # simulation, as it would on the mast): the property is claimed inside that envelope
-        d["wind_mean_ms"] = round(draw(st.floats(2.0, 9.0)), 1)
-        d["turbulence_pct"] = round(draw(st.floats(5.0, 40.0)), 1)
+        # a wind the dump load holds at the trip: its three-sigma turbulence peak plus the
+        # base's gusts within 90 % of the steady wind the full dump holds at the bus limit
+        # (host_sim/envelope.py); above that a real turbine must furl or brake (the bus limit
+        # then crosses in simulation, as it would on the mast)
+        ti = round(draw(st.floats(5.0, 40.0)), 1)
+        d["turbulence_pct"] = ti
+        hi = min(9.0, wind_mean_hi(base, ti))
+        d["wind_mean_ms"] = math.floor(draw(st.floats(min(2.0, hi), hi)) * 10.0) / 10.0
     usb = doc.setdefault("usb", {})
     net = usb.setdefault("network", {})
     net["tol_pct"] = round(draw(st.floats(0.0, 5.0)), 2)

@@ -43,3 +43,32 @@ def test_demo_rig_holds_less_than_the_sprint_that_crossed():
 def test_the_effort_cap_keeps_the_best_power_under_the_margin():
     assert envelope.effort_max(200.0, 100.0) == pytest.approx(1.8)
     assert envelope.effort_max(200.0, 100.0, margin=1.0) == pytest.approx(2.0)
+
+
+def test_the_wind_bound_is_the_plants_steady_state_at_the_bus_limit():
+    """A steady wind at envelope.wind_hold on the hut's mast, full dump, everything else off:
+    the rotor settles with the bus at the closed-loop limit."""
+    base = load_scenario("hut_wind")
+    trip_v = base.profile.ovp_trip_mv / 1000.0
+    v_hold = envelope.wind_hold(trip_v, base.doc)
+    v_lim = trip_v + base.doc["bus"]["clamp_margin_v"]
+    doc = copy.deepcopy(base.doc)
+    doc["profile"] = base.profile_doc
+    doc["drive"].update(wind_mean_ms=v_hold, turbulence_pct=0.0, gusts=[])
+    doc["events"] = []
+    plant = Plant(load_doc(doc, base.source))
+    c = Commands()
+    c.dump_duty = DUTY_MAX
+    for _ in range(3000):  # 60 s: the rotor's inertia settles in seconds
+        plant.step(c, 0.02)
+    assert plant.snapshot()["bus_v"] == pytest.approx(v_lim, rel=2e-3)
+
+
+def test_the_wind_envelope_keeps_the_peak_under_the_hold():
+    """mean x (1 + 3 TI) + gusts = 90 % of the hold at the largest mean drawn."""
+    v = envelope.wind_mean_max(20.0, 30.0, 2.0)
+    assert v * (1.0 + 3.0 * 0.30) + 2.0 == pytest.approx(0.9 * 20.0)
+    gusts = [{"t_s": 0.0, "duration_s": 10.0, "peak_ms": 3.0},
+             {"t_s": 0.0, "duration_s": 10.0, "peak_ms": 1.0},
+             {"t_s": 50.0, "duration_s": 4.0, "peak_ms": 3.5}]
+    assert envelope.gust_peak_ms(gusts) == pytest.approx(4.0, rel=1e-4)  # coinciding ones add
