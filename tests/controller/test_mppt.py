@@ -103,3 +103,21 @@ def test_overspeed_dump_lets_go_slowly():
         h.dump_duty(15000)
     assert h.dump_duty(15000) == 0  # full to off in 20 periods
     assert h.dump_duty(20500) == DUTY_MAX // 2  # and up again at once
+
+
+def test_with_mppt_the_storage_converters_back_off_under_the_tracker_setpoint():
+    """Invariant (supervisor.py): with MPPT the battery's converter holds the bus at the
+    tracker's setpoint instead of the profile's floor: on a bus above the floor (13 V) but
+    under the first setpoint (two 0.5 V steps above it, 14 V) its output falls period by
+    period; without MPPT the same bus lets it rise."""
+    from ctl_bench import Bench
+    outs = {}
+    for mppt in (True, False):
+        p = build(doc_with(control__mppt=mppt, control__mppt_step_v=0.5,
+                           control__mppt_interval_ms=1000, bus__floor_v=13))
+        b = Bench(p, bus_mv=13500, batt_mv=12000, batt_ma=500, cap_mv=0)
+        first = b.run(1).batt_duty
+        last = b.run(10).batt_duty
+        outs[mppt] = (first, last)
+    assert 0 < outs[True][1] < outs[True][0]
+    assert outs[False][1] > outs[False][0] > 0
