@@ -1096,3 +1096,25 @@ def test_with_headroom_there_is_no_coast():
     converter regulates as usual instead of coasting at the top duty."""
     loop = _coasting_loop()
     assert loop.update(14900, 16000, 1000, 2000, 16000, 9000, 100000, 1) < 9500
+
+
+@pytest.mark.parametrize("cap_mv, released", [(14700, False), (14699, True)])
+def test_the_bus_latch_needs_the_bus_above_the_bank_too(cap_mv, released):
+    """Invariant (supervisor.py, the cross-check's release): while current flows the latch
+    releases only on a bus reading more than 0.3 V above the bank as well as the battery
+    (15.0 V: a bank at 14.7 V keeps it, at 14.699 V lets it go)."""
+    b = running()
+    assert b.run(1, bus_mv=12000, cap_ma=0).fault & F_BUS_SENSOR
+    c = b.run(1, bus_mv=15000, batt_ma=1000, cap_mv=cap_mv, cap_ma=0)
+    assert bool(c.fault & F_BUS_SENSOR) != released
+
+
+@pytest.mark.parametrize("cap_ma, released", [(200, True), (201, False)])
+def test_the_bus_latch_no_current_edge(cap_ma, released):
+    """Invariant (supervisor.py, the cross-check's release): 'no current' is 0.2 A or less into
+    each store (the cross-check's own threshold): with the reading moved from where it lied,
+    0.2 A into the bank lets the latch go, 0.201 A keeps it."""
+    b = running()
+    assert b.run(1, bus_mv=12000, cap_ma=0).fault & F_BUS_SENSOR
+    c = b.run(1, bus_mv=12500, batt_ma=200, cap_ma=cap_ma)
+    assert bool(c.fault & F_BUS_SENSOR) != released
