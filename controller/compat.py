@@ -70,10 +70,13 @@ def to_int(value, scale):
 
 
 if not MICROPYTHON:
+    SLOT_NAMES = {}  # (class name, buffer) -> {name: slot}: what state_names gave (tests)
+
     def state_names(cls, buf, **slots):
         """Host only: make each named slot of the array attribute buf of cls readable and
         settable as an attribute of that name (the tests and host tools read the state by
         name; a board spends no RAM on the names)."""
+        SLOT_NAMES.setdefault((cls.__name__, buf), {}).update(slots)
         for name, i in slots.items():
             setattr(cls, name, property(
                 lambda self, i=i: getattr(self, buf)[i],

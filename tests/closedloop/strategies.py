@@ -88,9 +88,9 @@ def fault_events(draw, duration_s):
             # simulation rightly shows it as a crossing (see fault_parade for a 40 V surge
             # into a loaded bus)
             ev["surge_v"] = draw(st.sampled_from((25.0, 26.5, 27.5)))
-            # no stiffer than 3 ohm: the converters pass a stiffer one on to the battery in
+            # no stiffer than 5 ohm: the converters pass a stiffer one on to the battery in
             # the period before the guard answers (host_sim/scenario_gen.py SURGE_OHM_MIN)
-            ev["surge_ohm"] = draw(st.sampled_from((3.0, 4.7, 10.0)))
+            ev["surge_ohm"] = draw(st.sampled_from((5.0, 6.8, 10.0)))
             ev["duration_s"] = draw(st.sampled_from((0.05, 0.3, 1.0)))
         elif kind == "wrong_divider_resistor":
             ev["resistor"] = draw(st.sampled_from(("dp_top", "dm_bottom", "batt_top", "bus_bottom")))

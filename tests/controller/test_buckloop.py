@@ -306,3 +306,31 @@ def test_the_tick_raises_nothing_on_a_dead_bus_under_a_bank_read_below_0v():
     b = Bench(build(doc_with()), bus_mv=0, cap_mv=-400, cap_ma=0)
     c = b.run(3)
     assert c.cap_duty == 0 and c.batt_duty == 0
+
+
+def test_a_cut_on_a_steady_bus_sets_the_duty_for_a_bus_an_eighth_higher_and_a_quarter_down():
+    """Invariant (buckloop.py, the cut): more than lim/32 over the limit on a steady bus, u goes
+    0.5 V under the output and the duty is u over the bus plus an eighth, and at least a
+    quarter under last period's."""
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 15000, 5000, 30000
+    d = loop.update(13000, 14400, 1100, 1000, 30000, 9000, BIG_MV)
+    assert loop.u_mv == 12500
+    assert d == min(12500 * DUTY_MAX // (30000 + 30000 // 8), 5000 - 5000 // 4)
+    loop.u_mv, loop.duty, loop.bus_last_mv = 15000, 3000, 30000
+    d = loop.update(13000, 14400, 1100, 1000, 30000, 9000, BIG_MV)
+    assert d == 3000 - 3000 // 4  # 12.5 V over 33.75 V would be more: the quarter binds
+
+
+@pytest.mark.parametrize("out_ma, bus_mv, off", [
+    (1031, 31000, False),  # exactly lim/32 over, bus up 1 V: a cut, not off
+    (1032, 30967, False),  # over, bus up by exactly 30967 / 32 (967 mV): a cut
+    (1032, 30968, True),  # over, bus up by more than bus / 32: off
+])
+def test_the_running_up_edges(out_ma, bus_mv, off):
+    """Invariant (buckloop.py, off): off needs both more than lim/32 over the limit and a bus
+    that rose more than bus/32 (3.1 %) in the period."""
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 15000, 5000, 30000
+    d = loop.update(13000, 14400, out_ma, 1000, bus_mv, 9000, BIG_MV)
+    assert (d == 0) == off

@@ -105,3 +105,15 @@ def test_the_sign_restore_idiom_reads_back_a_zero_extended_slot(value):
     half, mask = 0x20000000, 0x3FFFFFFF
     for loaded in (value, value & 0xFFFFFFFF):  # a 32-bit board's load, a 64-bit port's
         assert ((loaded + half) & mask) - half == value
+
+
+def test_each_named_state_slot_has_its_own_place():
+    """Invariant (compat.state_names, the viper slots): within one array no two names share a
+    slot, so no part's state overwrites another's (a slot constant moved by one would)."""
+    from controller import (buckloop, leadacid, mppt, overvolt, supercap,  # noqa: F401
+                            supervisor, usbport)
+    from controller.compat import SLOT_NAMES
+    assert len(SLOT_NAMES) >= 8
+    for (cls, buf), slots in SLOT_NAMES.items():
+        where = sorted(slots.values())
+        assert len(set(where)) == len(where) and where[0] >= 0, (cls, buf, slots)

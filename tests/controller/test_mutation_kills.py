@@ -1118,3 +1118,15 @@ def test_the_bus_latch_no_current_edge(cap_ma, released):
     assert b.run(1, bus_mv=12000, cap_ma=0).fault & F_BUS_SENSOR
     c = b.run(1, bus_mv=12500, batt_ma=200, cap_ma=cap_ma)
     assert bool(c.fault & F_BUS_SENSOR) != released
+
+
+def test_the_bus_latch_holds_on_a_stuck_reading_below_0v():
+    """Invariant (supervisor.py, the cross-check's release, its signed slot): a bus sensor
+    stuck at a reading below 0 V keeps the latch even once no current flows, as a stuck
+    reading above 0 V does (the reading has not moved from where it lied)."""
+    b = running()
+    assert b.run(1, bus_mv=-200, cap_ma=0).fault & F_BUS_SENSOR
+    c = b.run(3, bus_mv=-200, batt_ma=0, cap_ma=0)
+    assert c.fault & F_BUS_SENSOR
+    c = b.run(1, bus_mv=-100, batt_ma=0, cap_ma=0)  # moved, no current: released
+    assert not c.fault & F_BUS_SENSOR
