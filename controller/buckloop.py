@@ -26,7 +26,7 @@ _UNDER_MV = const(300)  # u never winds further below the output than this
 
 # state slots of BuckLoop.st (array('i')); the host names them (state_names at the end)
 _U = const(0)  # u_mv: commanded converter output voltage, mV; 0 when idle
-_DUTY = const(1)  # duty: last duty, 0.._DUTY_MAX (below 0 after a bus read below 0 V)
+_DUTY = const(1)  # duty: last duty, 0.._DUTY_MAX (below 0 only tapering over a store below 0 V)
 _BUS_LAST = const(2)  # bus_last_mv: bus at the previous update, mV (may be negative)
 _S_HALF = const(0x20000000)  # sign restore of a ptr32 load (compat.py, viper state)
 _S_MASK = const(0x3FFFFFFF)

@@ -70,17 +70,16 @@ def wind_hold(trip_v, doc):
     """The steady wind speed, m/s, at which the rotor turning at the speed of the bus limit
     gives just what the full dump absorbs there (dump_hold). A stronger wind, held, holds the
     bus above the limit. doc: a resolved scenario document with a wind drive."""
-    from host_sim.plant.drive import cp_coeffs
+    import numpy as np
+
+    from host_sim.plant.drive import Wind
     p_drive_w, rotor_rpm = dump_hold(trip_v, doc)
-    d = doc["drive"]
     w_r = rotor_rpm * 2.0 * math.pi / 60.0  # rotor speed, rad/s
-    a, b, c = cp_coeffs()(d["runaway_ratio"])
-    r = d["rotor_radius_m"]
-    kq = 0.5 * d["air_density"] * math.pi * r ** 3 * d["cp_max"] / d["tsr_opt"]
+    # the plant's own rotor curve (its wind series is not used: a second of it is drawn)
+    rotor = Wind(doc["drive"], np.random.default_rng(0), 1.0)
 
     def p_rotor_w(v):
-        x = w_r * r / (v * d["tsr_opt"])
-        return kq * v * v * (a + x * (b + c * x)) * w_r
+        return float(rotor.torque_array(v, w_r)) * w_r
 
     # at a fixed rotor speed the rotor's power rises with the wind: bisect
     lo, hi = 0.1, 100.0

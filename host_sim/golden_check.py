@@ -75,6 +75,12 @@ def load_case(path, overrides):
     return profile.from_dict(doc)
 
 
+# the readings a glitch overwrites with its value, by glitch number (4: the thermistor, open or
+# shorted; 10 and up: the cases written out in run_case)
+GLITCH_FIELDS = ("bus_mv", "src_ma", "batt_mv", "batt_ma", None, "cap_mv", "cap_ma",
+                 "usb_vbus_mv", "usb_dp_mv", "usb_dm_mv")
+
+
 class Walk:
     """A reading that wanders around a centre that jumps to a new regime now and then."""
 
@@ -175,26 +181,10 @@ def run_case(name, p, n_ticks, seed):
         if glitch_left:
             glitch_left -= 1
             g = glitch_field
-            if g == 0:
-                m.bus_mv = glitch_val
-            elif g == 1:
-                m.src_ma = glitch_val
-            elif g == 2:
-                m.batt_mv = glitch_val
-            elif g == 3:
-                m.batt_ma = glitch_val
+            if g < len(GLITCH_FIELDS) and GLITCH_FIELDS[g]:
+                setattr(m, GLITCH_FIELDS[g], glitch_val)
             elif g == 4:
                 m.batt_temp_dc = -600 if glitch_val < 0 else 900
-            elif g == 5:
-                m.cap_mv = glitch_val
-            elif g == 6:
-                m.cap_ma = glitch_val
-            elif g == 7:
-                m.usb_vbus_mv = glitch_val
-            elif g == 8:
-                m.usb_dp_mv = glitch_val
-            elif g == 9:
-                m.usb_dm_mv = glitch_val
             elif g == 10:  # battery absent or reversed
                 m.batt_mv = rng.between(-3000, cells * 900)
             elif g == 11:  # an overvoltage spike
