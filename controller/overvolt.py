@@ -119,6 +119,14 @@ class OverVoltGuard:
         s[_DUMP] = ramp if ramp > soft else soft
 
     @micropython.viper
+    def forget_rise(self):
+        """Read no rise into or out of this period's bus value: the supervisor calls it around
+        update() when that value is a stand-in for a suspect reading (only then, so the
+        common tick pays nothing for it)."""
+        s = ptr32(self.st)
+        s[_BUS_LAST] = 0
+
+    @micropython.viper
     def _record(self, now_ms: int):
         s = ptr32(self.st)
         cfg = ptr32(self.cfg)

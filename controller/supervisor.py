@@ -52,7 +52,6 @@ _F_USB_SENSOR = const(64)
 _OVP_TRIPPED = const(0)  # overvolt._TRIPPED
 _OVP_LOCKED = const(1)  # overvolt._LOCKED
 _OVP_DUMP = const(9)  # overvolt._DUMP
-_OVP_BUS_LAST = const(10)  # overvolt._BUS_LAST
 _USB_CONV = const(1)  # usbport._CONV
 _USB_ON = const(2)  # usbport._ON
 _USB_PROBE = const(3)  # usbport._PROBE
@@ -167,10 +166,10 @@ class Supervisor:
         ovp = self.ovp
         g = ptr32(ovp.st)
         if fault:  # a stand-in bus value: the guard reads no rise into it, nor out of it
-            g[_OVP_BUS_LAST] = 0
+            ovp.forget_rise()
         ovp.update(bus, dt, now_ms, int(m.reset_req))
         if fault:
-            g[_OVP_BUS_LAST] = 0
+            ovp.forget_rise()
         if g[_OVP_TRIPPED]:
             fault |= _F_OVP
         if g[_OVP_LOCKED]:
