@@ -204,7 +204,7 @@ def _lim(v):
     d = v.as_dict()
     return {"held": d["held"], "margin": d["margin"], "worst": d["worst"], "limit": d["limit"],
             "t_worst_s": d["t_worst_s"], "first_crossed_s": d["first_crossed_s"],
-            "unit": d["unit"]}
+            "unit": d["unit"], **({"peak": d["peak"]} if "peak" in d else {})}
 
 
 def run_chunk(ctx, task):

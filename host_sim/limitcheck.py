@@ -45,6 +45,8 @@ class Limit:
         self.limit = None  # limit at the worst margin
         self.t_worst_s = None
         self.crossed_at_s = None  # first time the limit was crossed
+        self.peak = None  # largest raw value, where a rule lets short excursions pass
+        self.t_peak_s = None
 
     def see(self, t_s, value, limit, margin=None):
         if margin is None:
@@ -57,6 +59,11 @@ class Limit:
         if margin < 0 and self.crossed_at_s is None:
             self.crossed_at_s = t_s
 
+    def see_peak(self, t_s, value):
+        if self.peak is None or value > self.peak:
+            self.peak = value
+            self.t_peak_s = t_s
+
     @property
     def held(self):
         return self.crossed_at_s is None
@@ -64,9 +71,13 @@ class Limit:
     def as_dict(self):
         def r(x):
             return None if x is None or (isinstance(x, float) and not math.isfinite(x)) else round(x, 4)
-        return {"held": self.held, "worst": r(self.worst), "limit": r(self.limit),
-                "t_worst_s": r(self.t_worst_s), "margin": r(self.worst_margin),
-                "first_crossed_s": r(self.crossed_at_s), "unit": self.unit, "what": self.what}
+        d = {"held": self.held, "worst": r(self.worst), "limit": r(self.limit),
+             "t_worst_s": r(self.t_worst_s), "margin": r(self.worst_margin),
+             "first_crossed_s": r(self.crossed_at_s), "unit": self.unit, "what": self.what}
+        if self.peak is not None:
+            d["peak"] = r(self.peak)
+            d["t_peak_s"] = r(self.t_peak_s)
+        return d
 
 
 class LimitChecker:
@@ -107,7 +118,9 @@ class LimitChecker:
             self.over_i_s += self.period_s
         else:
             self.over_i_s = 0.0
-        # a current above the band counts once it has lasted longer than one control period
+        # a current above the band counts once it has lasted longer than one control period;
+        # the raw peak is kept beside it, so the spikes the rule lets pass stay visible
+        L["batt_current"].see_peak(t_s, s["batt_a"])
         L["batt_current"].see(t_s, s["batt_a"] if self.over_i_s > self.period_s + 1e-9
                               else min(s["batt_a"], lim_a * BATT_A_TOL), lim_a * BATT_A_TOL)
         L["cap_clamp"].see(t_s, s.get("cap_v_int", s["cap_v"]), p.cap_clamp_mv / 1000.0 * CAP_TOL)

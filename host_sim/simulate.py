@@ -99,6 +99,10 @@ def print_table(summ, out=sys.stdout):
         print("%-14s %-5s %10.3f %10.3f %9.1f  %s" % (
             name, "yes" if d["held"] else "NO", d["worst"], d["limit"], d["t_worst_s"], d["unit"]),
             file=out)
+    bc = summ["limits"].get("batt_current", {})
+    if bc.get("peak") is not None and bc.get("limit") is not None and bc["peak"] > bc["limit"]:
+        print("batt_current: peak %.3f A at %.1f s, above the band for one period only (the rule "
+              "excepts such transients)" % (bc["peak"], bc["t_peak_s"]), file=out)
     print("energy: in %.1f kJ; battery %+.1f kJ, supercap %+.1f kJ, USB %.1f kJ, loads %.1f kJ; "
           "balance error %.3f %%" % (e.get("drive_in_j", 0) / 1e3, e.get("batt_stored_j", 0) / 1e3,
                                      e.get("cap_stored_j", 0) / 1e3, e.get("usb_out_j", 0) / 1e3,
