@@ -14,6 +14,7 @@
 #                           unix port native code lives outside the GC heap, so heap_floor_kb
 #                           does not see it; on a microcontroller it may not (docs/performance.md)
 #   sim_speedup, vs_ngspice, vs_ngspice_error_pct, batch_scenarios_per_s: the plant side
+#                           (sim_speedup_runs: each run's figure beside the median)
 import json
 import os
 import re
@@ -301,6 +302,8 @@ def cmd_bench(args):
         goal = ""
         if isinstance(v, dict):
             v = ", ".join("%s %s" % kv for kv in v.items())
+        elif isinstance(v, list):
+            v = ", ".join(str(x) for x in v)
         elif g and v is None:
             goal = "%s %s  (not measured)" % g
         elif g:

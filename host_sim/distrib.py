@@ -1,6 +1,8 @@
 # Where the examples of a campaign run (`spinrail fuzz`, `spinrail sweep`): in this process
-# (--workers 1), in a local pool of worker processes (the default: one per core), or on an
-# existing Dask distributed cluster (--scheduler tcp://host:port).
+# (--workers 1), in a local pool of worker processes (the default: one per core), on a Dask
+# cluster started here for the run (--scheduler local: a LocalCluster, one single-threaded worker
+# process per core or per --workers), or on an existing Dask distributed cluster
+# (--scheduler tcp://host:port).
 #
 # Work goes out in chunks of example indices with a small context (the base scenarios and the
 # options); results come back as chunks finish and the caller orders them by index, so nothing
@@ -63,6 +65,7 @@ class Pool:
         if self.workers < 1:
             raise UserError("--workers = %d: allowed 1 or more" % self.workers)
         self.client = None
+        self.cluster = None  # a LocalCluster this pool started (--scheduler local)
         self.ex = None
         self.slots = self.workers
 
@@ -84,7 +87,21 @@ class Pool:
             self.ex.shutdown(wait=True, cancel_futures=True)
         if self.client is not None:
             self.client.close()
+        if self.cluster is not None:
+            self.cluster.close()
         return False
+
+    def _start_local_cluster(self):
+        from distributed import LocalCluster
+        try:
+            # processes, one thread each: the simulation holds the GIL. The scheduler always opens
+            # an HTTP port (8787 unless told): a free one on localhost only
+            self.cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1,
+                                        processes=True, dashboard_address="127.0.0.1:0")
+        except Exception as e:
+            raise UserError("--scheduler local: could not start a local Dask cluster of %d "
+                            "workers (%s: %s)" % (self.workers, type(e).__name__, e))
+        self.scheduler = self.cluster.scheduler_address
 
     def _connect(self):
         addr = self.scheduler
@@ -93,6 +110,9 @@ class Pool:
         except ImportError:
             raise UserError("--scheduler %s: the dask distributed package is not installed "
                             "(pip install 'dask[distributed]')" % addr)
+        if addr == "local":
+            self._start_local_cluster()
+            addr = self.scheduler
         try:
             self.client = Client(addr, timeout="15s")
         except Exception as e:  # OSError, TimeoutError, ValueError for a bad address
@@ -113,8 +133,9 @@ class Pool:
 
     def describe(self):
         if self.client is not None:
-            return "Dask cluster %s (%d workers, %d threads)" % (self.scheduler, self.workers,
-                                                                 self.slots)
+            return "%sDask cluster %s (%d workers, %d threads)" % (
+                "local " if self.cluster is not None else "", self.scheduler, self.workers,
+                self.slots)
         if self.ex is not None:
             return "local pool of %d processes" % self.workers
         return "this process"

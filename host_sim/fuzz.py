@@ -435,7 +435,7 @@ def cmd_fuzz(args):
         out.mkdir(parents=True, exist_ok=True)
     except OSError as e:
         raise UserError("--out %s: cannot create the folder (%s)" % (out, e))
-    if args.scheduler and args.workers is not None:
+    if args.scheduler and args.scheduler != "local" and args.workers is not None:
         print("fuzz: --workers is ignored with --scheduler (the cluster's workers are used)",
               file=sys.stderr)
     n = None if args.minutes else (args.examples or 100)
@@ -475,7 +475,9 @@ def register(sub):
     sp.add_argument("--workers", type=int, default=None, metavar="W",
                     help="local worker processes (default: every core; 1 runs in this process)")
     sp.add_argument("--scheduler", default=None, metavar="ADDRESS",
-                    help="run on an existing Dask distributed cluster, e.g. tcp://host:8786")
+                    help="run on an existing Dask distributed cluster, e.g. tcp://host:8786, "
+                         "or 'local' to start a Dask cluster on this machine for the run "
+                         "(--workers worker processes, default one per core)")
     sp.add_argument("--out", default="spinrail-out/fuzz", metavar="DIR",
                     help="folder for fuzz.csv, fuzz_summary.json and the failing scenarios "
                          "(default: %(default)s)")

@@ -499,7 +499,9 @@ def register(sub):
     sp.add_argument("--workers", type=int, default=None, metavar="W",
                     help="local worker processes (default: every core; 1 runs in this process)")
     sp.add_argument("--scheduler", default=None, metavar="ADDRESS",
-                    help="run on an existing Dask distributed cluster, e.g. tcp://host:8786")
+                    help="run on an existing Dask distributed cluster, e.g. tcp://host:8786, "
+                         "or 'local' to start a Dask cluster on this machine for the run "
+                         "(--workers worker processes, default one per core)")
     sp.add_argument("--out", default="spinrail-out/sweep", metavar="DIR",
                     help="output folder (default: %(default)s)")
     sp.add_argument("--quiet", action="store_true", help="no progress on stderr")

@@ -13,7 +13,7 @@ distributed = pytest.importorskip("distributed")
 @pytest.fixture(scope="module")
 def cluster():
     c = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                 dashboard_address=None)
+                                 dashboard_address="127.0.0.1:0")
     yield c
     c.close()
 
@@ -43,3 +43,18 @@ def test_sweep_on_a_local_dask_cluster(tmp_path, cluster, short_crank):
     rc1 = run_cli(args + ["--workers", 1, "--out", tmp_path / "h"])
     assert rc == rc1
     assert (tmp_path / "d" / "sweep.csv").read_text() == (tmp_path / "h" / "sweep.csv").read_text()
+
+
+def test_fuzz_scheduler_local_starts_its_own_cluster(tmp_path, capsys):
+    """--scheduler local: a Dask LocalCluster of --workers processes, started for the run and
+    closed after it; same results as a run in this process."""
+    args = ["fuzz", "crank_relief", "--examples", 4, "--seed", 5, "--max-duration", 20,
+            "--shrink-runs", 0, "--quiet"]
+    rc_local = run_cli(args + ["--scheduler", "local", "--workers", 2,
+                               "--out", tmp_path / "local"])
+    printed = capsys.readouterr().out
+    assert "local Dask cluster tcp://" in printed and "(2 workers, 2 threads)" in printed
+    rc_here = run_cli(args + ["--workers", 1, "--out", tmp_path / "here"])
+    assert rc_local == rc_here and rc_local in (0, 1)
+    assert ((tmp_path / "local" / "fuzz.csv").read_text()
+            == (tmp_path / "here" / "fuzz.csv").read_text())
