@@ -62,6 +62,7 @@ _CH_BLOCKED = const(1)  # leadacid._BLOCKED
 _CH_FAULT = const(2)  # leadacid._FAULT
 _CAP_FAULT = const(1)  # supercap._FAULT
 _CAP_BAL_MASK = const(2)  # supercap._BAL_MASK
+_MPPT_DUMP = const(5)  # mppt._DUMP
 
 # state slots of Supervisor.st (array('i')); the host names them (end of file)
 _LAST_MS = const(0)  # last_ms: now_ms of the previous tick
@@ -181,6 +182,12 @@ class Supervisor:
             dump = _DUTY_MAX
 
         if fault:
+            if cfg[_C_MPPT]:
+                # the bus is unknown: the overspeed dump keeps its last duty (a rotor braked a
+                # period ago must not be let go by a sensor fault; dump_duty resumes from it)
+                d = ptr32(self.mppt.st)[_MPPT_DUMP]
+                if d > dump:
+                    dump = d
             c.dump_duty = dump
             self.charger.block()
             self.clamp.block()

@@ -292,8 +292,11 @@ def check_i5(ticks, L):
     Between recovery and the trip the dump load comes in in proportion at once (none at
     recovery, full at the trip; on a rising bus judged where twice the last period's rise
     would take it) and lets go by at most 5 % of full per period. While the
-    controller's cross-check holds the bus reading false, the dump load is fully on. With MPPT and an overspeed level the dump load also follows the bus above it (full over
-    1 V) at once, and lets go by at most 5 % of full per period (docs/profile.md, control)."""
+    controller's cross-check holds the bus reading false, the dump load is fully on (also on a
+    tick whose reading is out of range: the latch carries over it). With MPPT and an
+    overspeed level the dump load also follows the bus above it (full over 1 V) at once, and
+    lets go by at most 5 % of full per period; while a bus fault or the guard keeps the
+    tracker from running, the overspeed dump holds its last duty (docs/profile.md, control)."""
     o = OvpOracle(L)
     prev_abs = None
     guard_dump = 0  # what the guard asks of the dump load
@@ -303,9 +306,14 @@ def check_i5(ticks, L):
     trip_mv = math.floor(L.trip_mv + F(1, 2))  # the profile's integer mV (to_int rounding)
     rec_mv = math.floor(L.recover_mv + F(1, 2))
     span_mv = max(1, trip_mv - rec_mv)
+    lie = False  # the controller's cross-check latch on the bus reading: seen through the bus
+    # bit on a plausible reading; a reading out of range neither sets nor clears it (the
+    # cross-check judges plausible readings only), so it carries over such a tick
     for t in ticks:
         m, c = t.m, t.c
         suspect = bus_suspect(t, L)
+        if L.bus_plausible(m):
+            lie = suspect
         o.step(t, 0 if prev_abs is None else t.t_abs - prev_abs, suspect)
         prev_abs = t.t_abs
         # the bus the guard judges: over range counts as the trip; below range, or a reading
@@ -339,7 +347,7 @@ def check_i5(ticks, L):
             guard_dump = max(0, guard_dump - DUTY_MAX // RELEASE_PERIODS)
             assert not c.fault & F_OVP, _where(t, "ovp bit set with the latch clear")
             want = max(guard_dump, soft_dump, ovs_dump)
-            if suspect:  # the cross-check proved the bus reading false: the dump holds the bus
+            if lie:  # the cross-check proved the bus reading false: the dump holds the bus
                 want = DUTY_MAX
             assert c.dump_duty == want, _where(
                 t, "dump %d, the guard's release ramp is at %d, its soft zone at %d, overspeed "
