@@ -71,7 +71,12 @@ class Pool:
 
     def __enter__(self):
         if self.scheduler:
-            self._connect()
+            try:
+                self._connect()
+            except BaseException:
+                if self.cluster is not None:  # one this pool started: no orphan processes
+                    self.cluster.close()
+                raise
         elif self.workers > 1:
             if "forkserver" in mp.get_all_start_methods():
                 ctx = mp.get_context("forkserver")
