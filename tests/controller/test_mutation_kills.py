@@ -3,6 +3,8 @@ python -m host_sim.mutation). Each test names the invariant it proves; a mutant 
 because no test stated it. Where a number comes from outside the controller, its source is
 beside it."""
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from ctl_bench import Bench, build, doc_with
 from ctl_props import Limits
 
@@ -1130,3 +1132,200 @@ def test_the_bus_latch_holds_on_a_stuck_reading_below_0v():
     assert c.fault & F_BUS_SENSOR
     c = b.run(1, bus_mv=-100, batt_ma=0, cap_ma=0)  # moved, no current: released
     assert not c.fault & F_BUS_SENSOR
+
+
+# --- kills of the 2026-12-02 afternoon sample (another phase of --sample 4) -----------------
+@pytest.mark.parametrize("batt_mv, released", [(14700, False), (14699, True)])
+def test_the_bus_latch_needs_the_bus_above_the_battery(batt_mv, released):
+    """Invariant (supervisor.py, the cross-check's release): while current flows the latch
+    releases only on a bus reading more than 0.3 V above the battery as well as the bank
+    (15.0 V: a battery at 14.7 V keeps it, at 14.699 V lets it go)."""
+    b = running()
+    assert b.run(1, bus_mv=12000, cap_ma=0).fault & F_BUS_SENSOR
+    c = b.run(1, bus_mv=15000, batt_mv=batt_mv, batt_ma=1000, cap_ma=0)
+    assert bool(c.fault & F_BUS_SENSOR) != released
+
+
+def test_the_tick_counter_counts_every_tick():
+    """Invariant (supervisor.py: ticks, the telemetry count of ticks run, wrapping at 2**30
+    back to 1): seven ticks count seven."""
+    b = Bench(build(doc_with()), bus_mv=15000)
+    n0 = b.sup.ticks
+    b.run(7)
+    assert b.sup.ticks == n0 + 7
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.tuples(st.integers(-1000, 16000), st.integers(12000, 15000),
+                          st.integers(-3000, 4000), st.integers(-1000, 30000),
+                          st.integers(0, 1), st.booleans()), min_size=1, max_size=40))
+def test_the_loop_remembers_the_duty_and_bus_it_acted_on(steps):
+    """Invariant (buckloop.py: the next period's limits, the feedforward's rise, the duty a
+    cut lowers by a quarter, what last period's duty makes, are worked from the duty the loop
+    last returned and the bus it last read): after every update the duty slot holds the duty
+    returned and the bus slot the bus given; after stop() the loop is idle, u 0, duty 0."""
+    loop = BuckLoop()
+    for out_mv, ceil_mv, out_ma, bus_mv, coast, stop in steps:
+        if stop:
+            loop.stop()
+            assert (loop.u_mv, loop.duty, loop.bus_last_mv) == (0, 0, 0)
+            continue
+        d = loop.update(out_mv, ceil_mv, out_ma, 2000, bus_mv, 9000, 100000, coast)
+        assert loop.duty == d and loop.bus_last_mv == bus_mv
+
+
+def test_every_absorption_gets_its_full_time():
+    """Invariant (leadacid.py: entering a stage starts its timers from zero): after an
+    absorption that ended on its maximum time, float, and a re-bulk, the next absorption runs
+    its full time again (a timer carried over would end it at once)."""
+    p = build(doc_with(battery__absorption_max_minutes=10, battery__tail_current_a=0.1))
+    ch = LeadAcidCharger(p)
+    m = Measurements()
+    m.bus_mv, m.batt_ma, m.batt_temp_dc = 20000, 1000, p.ref_temp_dc
+    at_v = ceiling_mv(p, ST_ABSORPTION, p.ref_temp_dc)
+
+    def absorb_s():
+        m.batt_mv = at_v
+        ch.update(m, 1000, 9000)
+        assert ch.stage == ST_ABSORPTION
+        n = 1
+        while ch.stage == ST_ABSORPTION:
+            ch.update(m, 1000, 9000)
+            n += 1
+        assert ch.stage == ST_FLOAT
+        return n
+
+    m.batt_mv = 12600
+    ch.update(m, 1000, 9000)
+    assert ch.stage == ST_BULK
+    first = absorb_s()
+    assert first >= 600  # 10 minutes in 1 s ticks
+    m.batt_mv = 12000  # under re-bulk, held: back to bulk
+    while ch.stage != ST_BULK:
+        ch.update(m, 1000, 9000)
+    assert absorb_s() == first
+
+
+def test_the_taper_at_the_aim_keeps_to_the_top_duty():
+    """Invariants (buckloop.py, the coast's taper at or over the aim): the drive over the
+    output halves each period, the duty slot holds the duty returned, and a wound-up u never
+    takes the duty past the top duty (95 %): u is capped at what the top duty makes."""
+    top_mv = 15500 * 9500 // DUTY_MAX  # 14725
+    loop = _coasting_loop()  # u 14000
+    d = loop.update(14500, 14400, 500, 2000, 15500, 9000, 100000, 1)
+    assert loop.u_mv == (14000 + 14500) >> 1 and d == loop.u_mv * DUTY_MAX // 15500
+    assert loop.duty == d
+    loop = _coasting_loop()
+    loop.u_mv = 16000  # wound up: half-way to the output is still over the top
+    d = loop.update(14500, 14400, 500, 2000, 15500, 9000, 100000, 1)
+    assert loop.u_mv == top_mv and d == 9500 and loop.duty == d
+
+
+@pytest.mark.parametrize("out_ma, coasts", [(200, False), (250, False), (251, True)])
+def test_under_its_aim_a_converter_coasts_only_above_an_eighth_of_its_limit(out_ma, coasts):
+    """Invariant (buckloop.py, the coast: under the aim it needs more than lim / 8 of current,
+    at or over the aim more than lim / 32): with no headroom left, a converter under its aim
+    carrying 0.25 A of a 2 A limit or less stops; at 0.251 A it holds the top duty."""
+    loop = _coasting_loop()
+    d = loop.update(14500, 16000, out_ma, 2000, 15500, 9000, 100000, 1)
+    assert (d == 9500) == coasts and (d == 0) != coasts
+
+
+def test_a_cold_battery_at_its_capped_ceiling_leaves_bulk():
+    """Invariant (leadacid.py: bulk ends 'at voltage', judged against the ceiling the charger
+    regulates to, the compensated ceiling within its hard cap): at 5 C a 2.45 V/cell setpoint
+    compensated by -5 mV/C/cell asks 15.30 V of six cells, over the 2.50 V/cell cap (15.00 V,
+    docs/profile.md); a block held at 15.00 V is at voltage and goes to absorption (judged
+    against the uncapped 15.30 V it would stay in bulk for ever)."""
+    p = build(doc_with(battery__absorption_v_per_cell=2.45,
+                       battery__temp_coeff_mv_per_c_per_cell=-5.0))
+    ch = LeadAcidCharger(p)
+    m = Measurements()
+    m.bus_mv, m.batt_ma, m.batt_temp_dc = 20000, 1000, 50
+    assert ceiling_mv(p, ST_ABSORPTION, 50) == 6 * 2500
+    m.batt_mv = 6 * 2500
+    ch.update(m, 50, 9000)
+    assert ch.stage == ST_ABSORPTION
+
+
+def _idle(loop):
+    return (loop.u_mv, loop.duty, loop.bus_last_mv) == (0, 0, 0)
+
+
+def _charging_battery():
+    p = build(doc_with())
+    ch = LeadAcidCharger(p)
+    m = Measurements()
+    m.bus_mv, m.batt_mv, m.batt_ma, m.batt_temp_dc = 20000, 12800, 1000, 250
+    for _ in range(5):
+        ch.update(m, 50, 9000)
+    assert not _idle(ch.loop)
+    return p, ch, m
+
+
+def _charging_bank():
+    p, k, m = clamp_bench()
+    m.cap_mv, m.cap_ma = 10000, 500
+    for _ in range(5):
+        k.update(m, 9000)
+    assert not _idle(k.loop)
+    return p, k, m
+
+
+def test_every_stop_leaves_the_converter_idle():
+    """Invariant (buckloop.stop, written out wherever a charger stops its converter: 'loop.stop()
+    written out'): a stopped converter is idle, u 0, duty 0, no bus remembered, so its restart
+    starts at the zero-current point with a settled-bus check of its own. Checked for each
+    stop: the battery charger's block(), a battery fault, the battery over its ceiling; the
+    bank's block(), the bank at its clamp."""
+    _, ch, _ = _charging_battery()
+    ch.block()
+    assert _idle(ch.loop)
+    _, ch, m = _charging_battery()
+    m.batt_temp_dc = -600  # an open thermistor: a fault
+    ch.update(m, 50, 9000)
+    assert ch.fault and _idle(ch.loop)
+    p, ch, m = _charging_battery()
+    m.batt_mv = ceiling_mv(p, ST_BULK, 250) + p.over_margin_mv + 1
+    ch.update(m, 50, 9000)
+    assert _idle(ch.loop)
+    _, k, _ = _charging_bank()
+    k.block()
+    assert _idle(k.loop)
+    p, k, m = _charging_bank()
+    m.cap_mv = p.cap_clamp_mv
+    k.update(m, 9000)
+    assert _idle(k.loop)
+
+
+def test_u_winds_at_most_0v3_below_the_output():
+    """Invariant (buckloop.py _UNDER_MV: u never winds further below the output than 0.3 V while
+    the current is within its limit): a ceiling far under the store asks the steepest fall,
+    and u stops 0.3 V under the output."""
+    loop = BuckLoop()
+    loop.update(13000, 14400, 500, 2000, 20000, 9000, 100000)
+    for _ in range(3):
+        loop.update(13000, 8000, 500, 2000, 20000, 9000, 100000)
+    assert loop.u_mv == 13000 - 300
+
+
+def test_after_a_cut_the_duty_allows_for_a_bus_12_percent_higher():
+    """Invariant (buckloop.py, the cut: u drops 0.5 V under the output, and the duty is worked
+    for a bus 12.5 % higher, so no current flows even if the bus rises that much; the cut also
+    lowers the duty by a quarter at least): from the top duty the feedforward is the lower:
+    (13.0 - 0.5 V) / (16 V x 1.125) = 6,944."""
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 13500, 9500, 16000
+    d = loop.update(13000, 14400, 2200, 2000, 16000, 9000, 100000)  # 10 % over: a cut
+    assert d == 12500 * DUTY_MAX // (16000 + (16000 >> 3)) == 6944
+
+
+def test_a_rise_from_a_bus_of_1mv_counts():
+    """Invariant (overvolt.py: the soft zone judges a rising bus twice its last rise ahead;
+    only a reading at or below 0 V is 'none'): a bus read at 1 mV and then at 20 V has risen
+    20 V in a period; 60 V ahead, the soft zone puts the dump load fully on."""
+    p = build(doc_with())
+    g = OverVoltGuard(p)
+    g.update(1, 50, 0, 0)
+    g.update(20000, 50, 50, 0)
+    assert g.dump == DUTY_MAX
