@@ -58,3 +58,22 @@ def test_simulate_prints_the_spike_it_let_pass():
     out = io.StringIO()
     print_table(summ, out)
     assert "peak" not in out.getvalue()
+
+
+def test_a_campaign_reports_its_largest_spike():
+    """fuzz: the campaign summary carries the largest raw battery current over its examples
+    (the one-period spikes the rule lets pass), and the printout names it when it is above the
+    band."""
+    from host_sim.fuzz import Campaign, print_summary, summary_doc
+
+    def rec(i, currents):
+        lim, _ = _run(currents)
+        return {"i": i, "base": "demo", "failed": None, "error": None, "duration_s": 1.0,
+                "limits": {"batt_current": lim.as_dict()}}
+    camp = Campaign([rec(0, [2.0, 2.5]), rec(1, [2.0, 3.14, 2.0]), rec(2, [2.2])], 1.0,
+                    "this process", 1, [{"name": "demo"}])
+    assert summary_doc(camp, [])["peak"] == {"batt_current": {"peak": 3.14, "example": 1,
+                                                              "base": "demo"}}
+    out = io.StringIO()
+    print_summary(camp, [], "out", out)
+    assert "largest one-period spike 3.14 A (example 1, demo)" in out.getvalue()
