@@ -9,15 +9,15 @@
 from array import array
 
 NOISE_N = 4099  # noise table length per channel (prime, so channel tables do not line up)
+ADC_REF_V = 3.3  # the ADC's reference; voltage dividers scale full scale down to it
+R_BOTTOM = 10e3  # divider bottom resistor, ohm
+NTC_OPEN_DC = -800  # an open NTC reads -80.0 C (far below the -40 C plausibility floor)
 
 
 def _table(x):
     """A noise table as packed doubles: 32 KiB a channel instead of 128 KiB of float objects,
     so a batch of hundreds of scenarios (22 tables each) stays cache-friendly. Same values."""
     return array("d", x.tobytes())
-ADC_REF_V = 3.3  # the ADC's reference; voltage dividers scale full scale down to it
-R_BOTTOM = 10e3  # divider bottom resistor, ohm
-NTC_OPEN_DC = -800  # an open NTC reads -80.0 C (far below the -40 C plausibility floor)
 
 # channel -> (profile full-scale attribute (milli-units), bipolar, divider name or None)
 CHANNELS = {
