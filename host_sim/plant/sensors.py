@@ -19,6 +19,7 @@ def _table(x):
     so a batch of hundreds of scenarios (22 tables each) stays cache-friendly. Same values."""
     return array("d", x.tobytes())
 
+
 # channel -> (profile full-scale attribute (milli-units), bipolar, divider name or None)
 CHANNELS = {
     "bus_v": ("bus_fs_mv", False, "bus"),
