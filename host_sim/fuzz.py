@@ -378,8 +378,10 @@ def print_summary(camp, files, out_dir, out=None):
                   file=out)
     for k, (pk, r) in camp.peaks().items():
         if k in worst and worst[k][2]["limit"] is not None and pk > worst[k][2]["limit"]:
-            print("%s: largest one-period spike %.4g %s (example %d, %s), let pass by the rule"
-                  % (k, pk, worst[k][2]["unit"], r["i"], r["base"]), file=out)
+            print("%s: largest one-period spike %.4g %s against a band of %.4g (example %d, "
+                  "%s), let pass by the rule" % (k, pk, worst[k][2]["unit"],
+                                                 worst[k][2]["limit"], r["i"], r["base"]),
+                  file=out)
     errs = {k: v for k, v in counts.items() if k.startswith(ERROR)}
     for k, v in errs.items():
         print("%-14s %8d   (the run raised %s)" % (ERROR, v, k.split(":", 1)[1]), file=out)

@@ -76,4 +76,5 @@ def test_a_campaign_reports_its_largest_spike():
                                                               "base": "demo"}}
     out = io.StringIO()
     print_summary(camp, [], "out", out)
-    assert "largest one-period spike 3.14 A (example 1, demo)" in out.getvalue()
+    assert "largest one-period spike 3.14 A against a band of 2.64 (example 1, demo)" in \
+        out.getvalue()
