@@ -61,20 +61,23 @@ def test_simulate_prints_the_spike_it_let_pass():
 
 
 def test_a_campaign_reports_its_largest_spike():
-    """fuzz: the campaign summary carries the largest raw battery current over its examples
-    (the one-period spikes the rule lets pass), and the printout names it when it is above the
-    band."""
+    """fuzz: the campaign summary carries the largest raw battery current over its examples,
+    relative to each example's own band (the one-period spikes the rule lets pass), and the
+    printout names it when it is above that band."""
     from host_sim.fuzz import Campaign, print_summary, summary_doc
 
     def rec(i, currents):
         lim, _ = _run(currents)
         return {"i": i, "base": "demo", "failed": None, "error": None, "duration_s": 1.0,
                 "limits": {"batt_current": lim.as_dict()}}
-    camp = Campaign([rec(0, [2.0, 2.5]), rec(1, [2.0, 3.14, 2.0]), rec(2, [2.2])], 1.0,
+    big = rec(3, [2.0])  # another base: a 12.5 A limit, a 13.0 A spike is under its band
+    big["base"] = "hut"
+    big["limits"]["batt_current"].update(peak=13.0, limit=13.75)
+    camp = Campaign([rec(0, [2.0, 2.5]), rec(1, [2.0, 3.14, 2.0]), rec(2, [2.2]), big], 1.0,
                     "this process", 1, [{"name": "demo"}])
-    assert summary_doc(camp, [])["peak"] == {"batt_current": {"peak": 3.14, "example": 1,
-                                                              "base": "demo"}}
+    assert summary_doc(camp, [])["peak"] == {"batt_current": {
+        "peak": 3.14, "limit": 2.64, "example": 1, "base": "demo"}}
     out = io.StringIO()
     print_summary(camp, [], "out", out)
-    assert "largest one-period spike 3.14 A against a band of 2.64 (example 1, demo)" in \
+    assert "largest one-period spike 3.14 against its band of 2.64 A (example 1, demo)" in \
         out.getvalue()
