@@ -183,8 +183,9 @@ class Supervisor:
 
         if fault:
             if cfg[_C_MPPT]:
-                # the bus is unknown: the overspeed dump keeps its last duty (a rotor braked a
-                # period ago must not be let go by a sensor fault; dump_duty resumes from it)
+                # the tracker does not run on this path (a bus fault, a trip, a lockout): the
+                # overspeed dump keeps its last duty (a rotor braked a period ago must not be
+                # let go by a sensor fault; dump_duty resumes from it)
                 d = ptr32(self.mppt.st)[_MPPT_DUMP]
                 if d > dump:
                     dump = d

@@ -95,22 +95,16 @@ def wind_hold(trip_v, doc):
 
 
 def gust_peak_ms(gusts):
-    """The largest sum of the gusts' raised-cosine pulses at any one time, m/s."""
+    """The largest sum of the gusts' pulses at any one time, m/s (the plant's own gust shape,
+    on 2,001 points over the span of the gusts)."""
     if not gusts:
         return 0.0
+    import numpy as np
+
+    from host_sim.plant.drive import gust_series
     t0 = min(gu["t_s"] for gu in gusts)
     t1 = max(gu["t_s"] + gu["duration_s"] for gu in gusts)
-    peak = 0.0
-    n = 2000
-    for k in range(n + 1):
-        t = t0 + (t1 - t0) * k / n
-        s = 0.0
-        for gu in gusts:
-            x = (t - gu["t_s"]) / gu["duration_s"]
-            if 0.0 <= x <= 1.0:
-                s += gu["peak_ms"] * 0.5 * (1.0 - math.cos(2.0 * math.pi * x))
-        peak = max(peak, s)
-    return peak
+    return float(gust_series(gusts, np.linspace(t0, t1, 2001)).max())
 
 
 def wind_mean_max(v_hold_ms, turbulence_pct, gust_ms):

@@ -383,8 +383,8 @@ def print_summary(camp, files, out_dir, out=None):
     for k, (pk, lim, r) in camp.peaks().items():
         if pk > lim:
             print("%s: largest one-period spike %.4g against its band of %.4g %s (example %d, "
-                  "%s), let pass by the rule" % (k, pk, lim, worst[k][2]["unit"] if k in worst
-                                                 else "", r["i"], r["base"]), file=out)
+                  "%s), let pass by the rule" % (k, pk, lim, r["limits"][k]["unit"], r["i"],
+                                                 r["base"]), file=out)
     errs = {k: v for k, v in counts.items() if k.startswith(ERROR)}
     for k, v in errs.items():
         print("%-14s %8d   (the run raised %s)" % (ERROR, v, k.split(":", 1)[1]), file=out)

@@ -142,6 +142,17 @@ def cp_coeffs():
     return abc
 
 
+def gust_series(gusts, t):
+    """The gusts' summed speed at the times t (numpy array, s), m/s: each a 1 - cos pulse of
+    its peak over its duration."""
+    g = np.zeros(len(t))
+    for gust in gusts:
+        x = (t - gust["t_s"]) / gust["duration_s"]
+        m = (x >= 0) & (x <= 1)
+        g[m] += gust["peak_ms"] * 0.5 * (1.0 - np.cos(2.0 * np.pi * x[m]))
+    return g
+
+
 class Wind(Drive):
     def __init__(self, d, rng, duration_s):
         super().__init__(d)
@@ -166,12 +177,7 @@ class Wind(Drive):
         u[0] = rng.standard_normal()
         for k in range(1, n):
             u[k] = phi * u[k - 1] + e[k]
-        t = np.arange(n) * dt
-        g = np.zeros(n)
-        for gust in d["gusts"]:
-            x = (t - gust["t_s"]) / gust["duration_s"]
-            m = (x >= 0) & (x <= 1)
-            g[m] += gust["peak_ms"] * 0.5 * (1.0 - np.cos(2.0 * np.pi * x[m]))
+        g = gust_series(d["gusts"], np.arange(n) * dt)
         self.series_dt = dt
         self.turb = u.tolist()  # unit turbulence
         self.gust = g.tolist()  # gust speed added, m/s
