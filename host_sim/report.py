@@ -31,14 +31,24 @@ def _spans(t, mask):
     return out
 
 
-def write(result, path):
+# the run's verdict in the title (simulate.verdict)
+_VERDICT_TEXT = {"held": "every limit held", "crossed": "a limit was CROSSED",
+                 "not_doing_its_job": "limits held, but NOT DOING ITS JOB (service warnings)"}
+
+
+def write(result, path, verdict=None):
     s = result.series
     p = result.scenario.profile
     t = s["t_s"] / 60.0  # minutes
     fig, ax = plt.subplots(6, 1, figsize=(11, 15), sharex=False,
                            gridspec_kw={"height_ratios": [1, 1, 1.3, 1, 1, 0.9]})
-    fig.suptitle("spinrail simulate: %s (%.0f s, seed %s)" % (
-        result.scenario.name, result.scenario.duration_s, result.scenario.seed), fontsize=12)
+    title = "spinrail simulate: %s (%.0f s, seed %s)" % (
+        result.scenario.name, result.scenario.duration_s, result.scenario.seed)
+    if verdict:
+        codes = sorted({w["code"] for w in result.warnings})
+        title += "\n%s%s" % (_VERDICT_TEXT.get(verdict, verdict),
+                             (": " + ", ".join(codes)) if codes and verdict != "held" else "")
+    fig.suptitle(title, fontsize=12)
 
     a = ax[0]
     a.plot(t, s["drive_rpm"], color="#555555", lw=0.8, label="drive speed (rpm)")
@@ -118,7 +128,7 @@ def write(result, path):
         a.grid(alpha=0.3)
 
     _energy(ax[5], result.ledger)
-    fig.tight_layout(rect=(0, 0, 1, 0.98))
+    fig.tight_layout(rect=(0, 0, 1, 0.965 if verdict else 0.98))
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=90, format="png")
     plt.close(fig)

@@ -13,6 +13,7 @@ from controller.signals import ST_BLOCKED
 from controller.supervisor import Supervisor
 from host_sim.limitcheck import LimitChecker, ceiling_v
 from host_sim.plant.plant import Plant
+from host_sim.service import ServiceMeter
 
 CLOCK_START_MS = TICKS_PERIOD - 60000
 
@@ -24,6 +25,8 @@ COLUMNS = (
     ("p_in_w", "W", "mechanical power from the drive"),
     ("p_elec_w", "W", "generator electrical output"),
     ("p_ideal_w", "W", "wind/hydro: max steady-state electrical power at this wind speed"),
+    ("p_best_w", "W", "the source's best electrical power this period (service.BestPower; "
+     "blank where not defined)"),
     ("bus_v", "V", "rectified bus"),
     ("src_a", "A", "current from the bridge into the bus"),
     ("batt_v", "V", "battery terminal voltage"),
@@ -39,6 +42,7 @@ COLUMNS = (
     ("usb_a", "A", "current to the USB devices"),
     ("usb_conv", "0/1", "5 V converter enabled"),
     ("usb_on", "0/1", "port switch closed"),
+    ("loads_w", "W", "battery-side loads' power"),
     ("dump_on", "0/1", "dump load duty above zero"),
     ("batt_duty", "1e-4", "battery converter duty"),
     ("cap_duty", "1e-4", "supercap converter duty"),
@@ -49,17 +53,22 @@ COLUMN_NAMES = tuple(c[0] for c in COLUMNS)
 
 
 class RunResult:
-    def __init__(self, scenario, series, limits, ledger, ticks, wall_s):
+    def __init__(self, scenario, series, limits, ledger, ticks, wall_s, service=None):
         self.scenario = scenario
         self.series = series  # dict name -> numpy array (stage as int codes)
         self.limits = limits  # dict name -> limitcheck.Limit
         self.ledger = ledger  # dict of joules and balance_error_pct
         self.ticks = ticks
         self.wall_s = wall_s
+        self.service = service  # dict: summary.json's "service" section (host_sim/service.py)
 
     @property
     def all_held(self):
         return all(x.held for x in self.limits.values())
+
+    @property
+    def warnings(self):
+        return (self.service or {}).get("warnings", [])
 
     def speedup(self):
         return self.scenario.duration_s / self.wall_s if self.wall_s > 0 else math.inf
@@ -104,6 +113,7 @@ def run(sc, progress=True, every=1, controller=None):
     dt_s = period_ms / 1000.0
     n = int(round(sc.duration_s * 1000.0 / period_ms))
     checker = LimitChecker(p, dt_s, bus_limit_v(sc, p))
+    meter = ServiceMeter(sc, plant, dt_s)
     rows = []
     prog = Progress("simulate %s" % sc.name, n, progress)
     now_ms = CLOCK_START_MS
@@ -118,8 +128,9 @@ def run(sc, progress=True, every=1, controller=None):
         s = plant.snapshot()
         t_s = (k + 1) * dt_s
         checker.check(t_s, s, c, c.stage)
+        meter.period(t_s, s, c)
         if k % every == 0:
-            rows.append(_row(s, c, p))
+            rows.append(_row(s, c, p, meter.p_best))
         now_ms = (now_ms + period_ms) & TICKS_MASK
         if (k & 255) == 0:
             prog.update(k)
@@ -127,9 +138,10 @@ def run(sc, progress=True, every=1, controller=None):
     prog.close()
     led = plant.ledger()
     limits = checker.finish(n * dt_s, led["balance_error_pct"])
+    service = meter.finish(led, n * dt_s)
     series = {name: np.array([r[i] for r in rows], dtype=float)
               for i, name in enumerate(COLUMN_NAMES)}
-    return RunResult(sc, series, limits, led, n, wall)
+    return RunResult(sc, series, limits, led, n, wall, service)
 
 
 def bus_limit_v(sc, p):
@@ -140,12 +152,12 @@ def bus_limit_v(sc, p):
     return p.ovp_trip_mv / 1000.0 + float(margin)
 
 
-def _row(s, c, p):
+def _row(s, c, p, p_best=math.nan):
     stage = c.stage
     ceil = ceiling_v(p, stage, s["batt_temp_c"]) if stage != ST_BLOCKED else math.nan
     return (s["t_s"], s["drive_rpm"], s["machine_rpm"], s["p_in_w"], s["p_elec_w"],
-            s.get("p_ideal_w", math.nan), s["bus_v"], s["src_a"], s["batt_v"], s["batt_a"],
-            s["batt_temp_c"], s["batt_soc"], stage, ceil, s["cap_v"], s["cap_a"],
-            s["cell_v_max"], s["usb_vbus_v"], s["usb_a"], c.usb_conv, c.usb_on,
+            s.get("p_ideal_w", math.nan), p_best, s["bus_v"], s["src_a"], s["batt_v"],
+            s["batt_a"], s["batt_temp_c"], s["batt_soc"], stage, ceil, s["cap_v"], s["cap_a"],
+            s["cell_v_max"], s["usb_vbus_v"], s["usb_a"], c.usb_conv, c.usb_on, s["loads_w"],
             1 if c.dump_duty > 0 else 0, c.batt_duty, c.cap_duty, c.dump_duty, c.fault)
 

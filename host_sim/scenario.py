@@ -13,6 +13,10 @@ from controller import profile as _profile
 from controller.compat import ConfigError
 from controller.profile_fields import CHEMISTRIES, SCHEMES
 
+# the parts a scenario may declare different from its profile on purpose (accept_mismatch);
+# host_sim/service.py judges the others (profile_mismatch)
+MISMATCH_NAMES = ("chemistry", "cells", "capacity_ah", "supercap_cells")
+
 HERE = Path(__file__).resolve().parent
 SCEN_DIR = HERE / "scenarios"
 PROF_DIR = HERE / "profiles"
@@ -24,7 +28,8 @@ class ScenarioError(ValueError):
 
 # ---- schema ---------------------------------------------------------------------------------
 # Field kinds: N number, I whole number, B bool, S string, C choice, O object, L list of objects,
-# PTS list of [t_s, value] points, SPANS list of [start_s, end_s], TIMES list of times.
+# PTS list of [t_s, value] points, SPANS list of [start_s, end_s], TIMES list of times,
+# CL list of distinct choices.
 # None as a default means "derived" (filled in after validation, documented as such).
 
 
@@ -70,6 +75,10 @@ def O(sub, doc=""):
 
 def L(sub, doc, max_len=64):
     return F("L", [], sub=sub, doc=doc, max_len=max_len)
+
+
+def CL(choices, doc):
+    return F("CL", [], choices=choices, doc=doc)
 
 
 def PTS(lo, hi, unit, doc):
@@ -254,6 +263,9 @@ SCHEMA = {
     "profile": F("P", "default", doc="controller profile: a built-in name (default: "
                  "controller/default_profile.json, others host_sim/profiles/NAME.json), a path "
                  "relative to the scenario file, or an inline profile object"),
+    "accept_mismatch": CL(MISMATCH_NAMES, "parts that may differ from the controller profile on "
+                          "purpose (a mismatch study): no profile_mismatch service warning for "
+                          "them (docs/simulate.md)"),
     "drive": F("DRIVE", doc="the drive (required); fields depend on kind"),
     "machine": O({
         "ke_v_per_krpm": N(16, 0.5, 500, "V/krpm", "back-EMF constant (K_t = K_e in SI)"),
@@ -413,6 +425,14 @@ class _V:
                 self.err(path, v if not isinstance(v, list) else "[%d items]" % len(v),
                          "a list of at most %d objects" % f.max_len)
             return [self.obj(x, f.sub, "%s[%d]" % (path, i)) for i, x in enumerate(v)]
+        if k == "CL":
+            allowed = "a list of distinct names from " + ", ".join(f.choices)
+            if not isinstance(v, list):
+                self.err(path, v, allowed)
+            for i, x in enumerate(v):
+                if x not in f.choices or x in v[:i]:
+                    self.err("%s[%d]" % (path, i), x, allowed)
+            return list(v)
         if k in ("PTS", "SPANS", "TIMES"):
             return self.series(v, f, path)
         raise AssertionError(k)
@@ -679,6 +699,8 @@ def _doc_rows(spec, path, rows, kind_note=""):
             rng = "%s .. %s" % (_g(f.lo), _g(f.hi))
         elif f.kind == "C":
             rng = " / ".join(f.choices)
+        elif f.kind == "CL":
+            rng = "[names]: " + " / ".join(f.choices)
         elif f.kind == "B":
             rng = "true / false"
         elif f.kind == "PTS":

@@ -1,6 +1,8 @@
 # `spinrail simulate SCENARIO --out DIR` and `spinrail demo`: the main job. Runs the controller
 # against the plant in closed loop and writes timeseries.csv, summary.json and report.png.
-# Exit status: 0 every limit held, 1 a limit was crossed (which, when, by how much), 2 bad input.
+# Exit status: 0 every limit held and the system did its job, 1 a limit was crossed (which,
+# when, by how much; wins over 3), 2 bad input, 3 every limit held but a service warning was
+# raised (host_sim/service.py: it did not do its job).
 import sys
 from pathlib import Path
 
@@ -22,6 +24,9 @@ def load(name_or_path):
     except ScenarioError as e:
         raise UserError(str(e))
 
+
+EXIT_CROSSED = 1
+EXIT_SERVICE = 3
 
 _INT_COLS = ("usb_conv", "usb_on", "dump_on", "batt_duty", "cap_duty", "dump_duty", "fault")
 
@@ -77,7 +82,17 @@ def summary(result):
         "final": {"batt_soc": round(float(result.series["batt_soc"][-1]), 4),
                   "batt_v": round(float(result.series["batt_v"][-1]), 3),
                   "cap_v": round(float(result.series["cap_v"][-1]), 3)},
+        "service": result.service,
+        "verdict": verdict(result.all_held, (result.service or {}).get("warnings")),
     }
+
+
+def verdict(all_held, warnings):
+    """One word for the run: held, crossed (a limit), or not_doing_its_job (service warnings,
+    every limit held)."""
+    if not all_held:
+        return "crossed"
+    return "not_doing_its_job" if warnings else "held"
 
 
 def _every(result):
@@ -112,6 +127,42 @@ def print_table(summ, out=sys.stdout):
     print("battery stages: %s; final SOC %.1f %%" % (st, 100 * summ["final"]["batt_soc"]), file=out)
     if summ["faults_seen"]:
         print("faults seen: %s" % ", ".join(summ["faults_seen"]), file=out)
+    if summ.get("service"):
+        print_service(summ["service"], out)
+
+
+def _f(x, fmt, none="-"):
+    return none if x is None else fmt % x
+
+
+def print_service(sv, out=sys.stdout):
+    """The service figures, Wh and Ah first (docs/simulate.md)."""
+    e = sv["energy_wh"]
+    each = "".join(" (%s)" % ", ".join("%s %.2f" % kv for kv in e["loads_each"].items())
+                   if len(e["loads_each"]) > 1 else "")
+    print("service: in %.2f Wh; battery %+.2f Wh (%+.3f Ah net, %.3f Ah in), supercap %+.2f Wh, "
+          "USB %.2f Wh, loads %.2f Wh%s, dump %.2f Wh, losses %.2f Wh" % (
+              e["drive_in"] + e["surge_in"], e["battery"], sv["battery_ah"]["net"],
+              sv["battery_ah"]["in"], e["supercap"], e["usb"], e["loads"], each, e["dump"],
+              e["losses"]), file=out)
+    h = sv["harvest"]
+    a = sv["acceptance"]
+    print("  harvest %s of the source's best (%s Wh offered)%s; dump share %s of the input" % (
+        _f(h["ratio"], "%.3f"), _f(h["offered_wh"], "%.2f"),
+        " [%s]" % h["null_reason"] if h["null_reason"] else "",
+        _f(sv["dump_share"], "%.3f")), file=out)
+    print("  bulk acceptance %s (mean %s A of a possible %s A over %.0f s in bulk)%s" % (
+        _f(a["ratio"], "%.3f"), _f(a["mean_a"], "%.3f"), _f(a["possible_a"], "%.3f"),
+        a["bulk_s"], " [%s]" % a["null_reason"] if a["null_reason"] else ""), file=out)
+    u = sv["usb"]
+    bl = sv["blocked"]
+    print("  absorption at %s s, float at %s s; USB %.2f Wh, port on %.0f of %.0f s wanted; "
+          "blocked %.0f s%s" % (
+              _f(sv["time_to_absorption_s"], "%.1f", "never"),
+              _f(sv["time_to_float_s"], "%.1f", "never"), u["served_wh"], u["on_while_wanted_s"],
+              u["wanted_s"], bl["total_s"], " (%s)" % ", ".join(
+                  "%s %.0f s" % kv for kv in bl["reasons_s"].items()) if bl["reasons_s"] else ""),
+          file=out)
 
 
 def simulate(name_or_path, out_dir, every=1, progress=True):
@@ -122,7 +173,7 @@ def simulate(name_or_path, out_dir, every=1, progress=True):
     out.mkdir(parents=True, exist_ok=True)
     write_timeseries(result, out / "timeseries.csv")
     write_json(out / "summary.json", summ)
-    report.write(result, out / "report.png")
+    report.write(result, out / "report.png", summ["verdict"])
     return result, summ
 
 
@@ -134,7 +185,12 @@ def finish(result, summ, out_dir):
         print("spinrail: limit %s crossed at %.2f s: worst %.4g %s against %.4g %s (by %.4g)" % (
             k, d["first_crossed_s"], d["worst"], d["unit"], d["limit"], d["unit"],
             -d["margin"]), file=sys.stderr)
-    return 1 if crossed else 0
+    warnings = (summ.get("service") or {}).get("warnings") or []
+    for w in warnings:
+        print("spinrail: service warning %s: %s" % (w["code"], w["message"]), file=sys.stderr)
+    if crossed:
+        return EXIT_CROSSED
+    return EXIT_SERVICE if warnings else 0
 
 
 def cmd_simulate(args):
@@ -158,9 +214,15 @@ def register(sub):
         "simulate", help="run a scenario in closed loop and report every limit",
         description="Run the controller against the plant simulator in closed loop. Writes "
                     "timeseries.csv, summary.json and report.png to --out, prints a summary table "
-                    "and exits 0 when every limit held, 1 when any was crossed (saying which, when "
-                    "and by how much), 2 on bad input. SCENARIO is a JSON file or a built-in name "
-                    "(%s). Formats: docs/scenario.md, docs/simulate.md." % names)
+                    "of every limit and the service figures (energy in Wh and Ah, harvest, dump "
+                    "share, bulk acceptance, time to absorption and float, USB, blocked time). "
+                    "Exit status: 0 every limit held and the system did its job; 1 a limit was "
+                    "crossed (saying which, when and by how much; wins over 3); 2 bad input; 3 "
+                    "every limit held but a service warning was raised (no_charge, "
+                    "source_below_battery, profile_mismatch, dump_waste, stage_chatter, "
+                    "absorption_stuck: printed on stderr and in summary.json service.warnings). "
+                    "SCENARIO is a JSON file or a built-in name (%s). Formats: docs/scenario.md, "
+                    "docs/simulate.md." % names)
     sp.add_argument("scenario", metavar="SCENARIO", help="scenario file or built-in name")
     sp.add_argument("--out", required=True, help="output folder (created if missing)")
     sp.add_argument("--every", type=int, default=1,
@@ -171,7 +233,9 @@ def register(sub):
         "demo", help="run the built-in demo scenario (a pedal charging point at a field clinic)",
         description="Run the built-in demo scenario: a pedal charging point at a field clinic, a "
                     "rider who tires over twenty minutes, a part-charged AGM battery in a warm room, a "
-                    "supercap bank and two phones. Same outputs and exit status as simulate.")
+                    "supercap bank and two phones. Same outputs and exit status as simulate (0 every "
+                    "limit held and the system did its job, 1 a limit crossed, 3 a service "
+                    "warning).")
     dp.add_argument("--out", default="spinrail-out/demo", help="output folder (default: %(default)s)")
     dp.add_argument("--quiet", action="store_true", help="no progress on stderr")
     dp.set_defaults(func=cmd_demo)
