@@ -4,7 +4,10 @@
 # them (the default) or on a Dask cluster (--scheduler). A failing example is shrunk in its
 # worker, written to --out as a scenario file, and the command that replays it is printed.
 # Exit status: 0 no limit crossed, 1 a limit crossed (or a run raised), 2 bad input,
-# 3 the campaign could not finish (distrib.EXIT_LOST). Guide: docs/fuzz.md.
+# 3 the campaign could not finish (distrib.EXIT_LOST). Service warnings (host_sim/service.py)
+# are counted and reported apart: a randomly drawn site that does not do its job (a weak
+# rider, a cold battery) is not a limit crossing and does not fail the campaign.
+# Guide: docs/fuzz.md.
 import argparse
 import csv
 import io
@@ -15,7 +18,7 @@ import time
 from contextlib import contextmanager
 from pathlib import Path
 
-from host_sim import distrib, scenario_gen
+from host_sim import distrib, scenario_gen, service
 from host_sim.errors import UserError
 from host_sim.fileio import atomic_open, write_json
 
@@ -173,7 +176,8 @@ def example(ctx, i):
     src = "<fuzz example %d>" % i
     rec = {"i": i, "base": bases[bi]["name"], "seed": doc["seed"],
            "duration_s": doc["duration_s"], "events": len(doc.get("events", [])),
-           "limits": None, "failed": None, "error": None, "shrunk": None, "shrink": None}
+           "limits": None, "failed": None, "error": None, "shrunk": None, "shrink": None,
+           "service": None}
     t_cross = None
     try:
         res = run_doc(doc, src)
@@ -182,6 +186,7 @@ def example(ctx, i):
         rec["error"] = "%s: %s" % (type(e).__name__, e)
     else:
         rec["limits"] = {k: _lim(v) for k, v in res.limits.items()}
+        rec["service"] = service.brief(res.service)
         rec["failed"] = _first_crossed(res.limits)
         if rec["failed"]:
             t_cross = res.limits[rec["failed"]].crossed_at_s
@@ -320,12 +325,15 @@ def write_csv(camp, path):
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(["i", "base", "seed", "duration_s", "events", "failed"]
-               + ["%s_margin" % k for k in names])
+               + ["%s_margin" % k for k in names] + ["service_warnings"]
+               + [k for k, _ in service.FIGURES])
     for r in camp.records:
         lim = r["limits"] or {}
+        sv = r.get("service") or {}
         w.writerow([r["i"], r["base"], r["seed"], r["duration_s"], r["events"], r["failed"] or ""]
                    + ["" if k not in lim or lim[k]["margin"] is None else lim[k]["margin"]
-                      for k in names])
+                      for k in names] + [" ".join(sv.get("warnings", ()))]
+                   + ["" if sv.get(k) is None else sv[k] for k, _ in service.FIGURES])
     with atomic_open(path) as f:
         f.write(buf.getvalue())
 
@@ -349,6 +357,13 @@ def summary_doc(camp, files):
                   for k, (m, r, d) in worst.items()},
         "peak": {k: {"peak": pk, "limit": lim, "example": r["i"], "base": r["base"]}
                  for k, (pk, lim, r) in camp.peaks().items()},
+        "service": {
+            "examples_with_warnings": sum(1 for r in camp.records
+                                          if (r.get("service") or {}).get("warnings")),
+            "warnings": service.counts(camp.records),
+            "worst": {k: {"value": x, "example": r["i"], "base": r["base"]}
+                      for k, (x, r) in service.worst(camp.records).items()},
+        },
         "failed_examples": [{"i": r["i"], "base": r["base"], "failed": r["failed"],
                              "error": r["error"], "file": str(p), "shrink": r.get("shrink")}
                             for r, p in files],
@@ -388,6 +403,7 @@ def print_summary(camp, files, out_dir, out=None):
     errs = {k: v for k, v in counts.items() if k.startswith(ERROR)}
     for k, v in errs.items():
         print("%-14s %8d   (the run raised %s)" % (ERROR, v, k.split(":", 1)[1]), file=out)
+    service.print_campaign(camp.records, "example", "i", out)
     fails = camp.failures
     if not fails:
         print("failures: none; every limit held in every example", file=out)
@@ -484,8 +500,11 @@ def register(sub):
                     "and assembly faults, and timed faults a correct design must survive. Example "
                     "i depends on --seed and i alone, so results do not depend on --workers or "
                     "the cluster. A failure is shrunk, written to --out as a scenario file and "
-                    "its replay command printed. Exit 0: no limit crossed; 1: a limit crossed; "
-                    "2: bad input; 3: the campaign could not finish. Guide: docs/fuzz.md.")
+                    "its replay command printed. Service warnings (a site that did not do its job: "
+                    "no_charge, dump_waste ...) are counted and reported apart, with the worst "
+                    "service figures; they are not limit crossings and do not change the exit "
+                    "status. Exit 0: no limit crossed; 1: a limit crossed; 2: bad input; 3: the "
+                    "campaign could not finish. Guide: docs/fuzz.md.")
     sp.add_argument("scenarios", nargs="*", metavar="SCENARIO",
                     help="base scenario file or built-in name (default: all built-ins)")
     g = sp.add_mutually_exclusive_group()

@@ -5,7 +5,8 @@
 # Writes sweep.csv (one row per sample), sweep.png (histograms of the margins, the limit
 # marked, and of the energy delivered) and sweep_summary.json; prints the worst case per limit.
 # Exit status: 0 every limit held in every sample, 1 a limit crossed, 2 bad input, 3 the sweep
-# could not finish. Grammar and examples: docs/fuzz.md.
+# could not finish. Service warnings (host_sim/service.py) are counted per code and reported
+# beside the limits; they do not change the exit status. Grammar and examples: docs/fuzz.md.
 import copy
 import csv
 import io
@@ -18,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from host_sim import distrib, scenario_gen
+from host_sim import distrib, scenario_gen, service
 from host_sim.errors import UserError
 from host_sim.fileio import atomic_open, atomic_path, write_json
 
@@ -199,7 +200,8 @@ def run_chunk(ctx, task):
     out = []
     for i, values in zip(range(i0, i1), vals):
         doc = sample_doc(ctx["raw"], ctx["paths"], values, i)
-        rec = {"i": i, "values": values, "limits": None, "energy": None, "error": None}
+        rec = {"i": i, "values": values, "limits": None, "energy": None, "error": None,
+               "service": None}
         try:
             res = runner.run(load_doc(doc, "<sweep sample %d>" % i), progress=False, every=1 << 30)
         except Exception as e:
@@ -210,6 +212,7 @@ def run_chunk(ctx, task):
                              for k, d in ((k, v.as_dict()) for k, v in res.limits.items())}
             rec["energy"] = {k: round(res.ledger.get(k, 0.0), 3) for k in ENERGY_COLS}
             rec["energy"]["balance_error_pct"] = round(res.ledger["balance_error_pct"], 5)
+            rec["service"] = service.brief(res.service)
         out.append(rec)
     return out
 
@@ -303,7 +306,8 @@ def write_csv(sw, path):
     head = ["sample"] + [v.field for v in sw.varies] + ["all_held", "error"]
     for k in names:
         head += ["%s_held" % k, "%s_margin" % k, "%s_worst" % k]
-    head += list(ENERGY_COLS) + ["balance_error_pct"]
+    head += list(ENERGY_COLS) + ["balance_error_pct", "service_warnings"]
+    head += [k for k, _ in service.FIGURES]
     w.writerow(head)
     for r in sw.records:
         row = [r["i"]] + [_cell(x) for x in r["values"]]
@@ -315,6 +319,8 @@ def write_csv(sw, path):
                                                    _cell(d["worst"])]
         e = r["energy"] or {}
         row += [_cell(e.get(k)) for k in ENERGY_COLS + ("balance_error_pct",)]
+        sv = r.get("service") or {}
+        row += [" ".join(sv.get("warnings", ()))] + [_cell(sv.get(k)) for k, _ in service.FIGURES]
         w.writerow(row)
     with atomic_open(path) as f:
         f.write(buf.getvalue())
@@ -412,6 +418,7 @@ def print_table(sw, out=None):
         if e:
             print("%-22s %10.3f %10.3f %10.3f" % ("to " + label, min(e), float(np.median(e)),
                                                    max(e)), file=out)
+    service.print_campaign(sw.records, "sample", "i", out)
     errs = [r for r in sw.records if r["error"]]
     for r in errs[:5]:
         print("sample %d raised: %s" % (r["i"], r["error"]), file=out)
@@ -469,6 +476,12 @@ def cmd_sweep(args):
         "worst": {k: {"margin": m, "sample": r["i"], "worst": d["worst"], "limit": d["limit"],
                       "unit": d["unit"], "held": d["held"]} for k, (m, r, d) in worst.items()},
         "crossed_samples": len(sw.crossed()),
+        "service": {
+            "samples_with_warnings": sum(1 for r in sw.records
+                                         if (r.get("service") or {}).get("warnings")),
+            "warnings": service.counts(sw.records),
+            "worst": {k: {"value": x, "sample": r["i"]}
+                      for k, (x, r) in service.worst(sw.records).items()}},
         "files": [{"limits": ks, "sample": i, "file": str(p)} for ks, i, p in files]})
     print_table(sw)
     for ks, i, p in files:
@@ -488,6 +501,8 @@ def register(sub):
                     "normal(mean,sd), pct(p) (+/- p % uniform around the scenario's value), "
                     "int(lo,hi), loguniform(lo,hi) or choice(a,b,...). Sample i depends on --seed "
                     "and i alone. Writes sweep.csv, sweep.png and sweep_summary.json to --out. "
+                    "Service warnings (a sample that did not do its job) are counted per code and "
+                    "reported with the worst service figures; they do not change the exit status. "
                     "Exit 0: every limit held; 1: a limit crossed; 2: bad input; 3: the sweep "
                     "could not finish. Guide: docs/fuzz.md.")
     sp.add_argument("scenario", metavar="SCENARIO", help="scenario file or built-in name")
