@@ -115,8 +115,9 @@ def register(sub):
                     "on a board (a real one, or `spinrail board virtual`), in lock-step over the "
                     "framed serial link. Flash the board first with the scenario's profile and "
                     "--mode link. Writes the same files as simulate plus link figures in "
-                    "summary.json; exit 0 when every limit held, 1 when one was crossed or the "
-                    "board stopped answering, 2 on bad input.")
+                    "summary.json; exit 0 when every limit held and the system did its job, 1 "
+                    "when one was crossed or the board stopped answering, 2 on bad input, 3 when "
+                    "every limit held but a service warning was raised (docs/simulate.md).")
     hp.add_argument("scenario", metavar="SCENARIO", help="scenario file or built-in name")
     hp.add_argument("--port", required=True, help="serial port (e.g. /dev/ttyACM0, or the path "
                     "`spinrail board virtual` printed)")

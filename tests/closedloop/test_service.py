@@ -363,3 +363,22 @@ def test_harvest_is_null_with_a_reason_where_not_defined():
     m = load_doc(d).doc["machine"]
     e = m["ke_v_per_krpm"] * abs(res.series["machine_rpm"][-1]) / 1000.0
     assert res.series["p_best_w"][-1] == pytest.approx(e * e / (4 * m["ra_ohm"]), rel=1e-9)
+
+
+def test_docs_name_every_column_and_service_key(demo):
+    """docs/simulate.md documents every timeseries.csv column and every service key."""
+    text = (Path(__file__).resolve().parents[2] / "docs" / "simulate.md").read_text()
+    for name in runner.COLUMN_NAMES:
+        assert "`%s`" % name in text, name
+    _, summ, _ = demo
+    for k in summ:
+        assert "`%s" % k in text, k
+
+    def leaves(d, path):
+        for k, v in d.items():
+            if isinstance(v, dict) and k not in ("loads_each", "reasons_s"):
+                yield from leaves(v, path + [k])
+            else:
+                yield path + [k]
+    for path in leaves(summ["service"], []):
+        assert path[-1] in text, ".".join(path)
