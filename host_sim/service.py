@@ -27,8 +27,11 @@ WH = 3600.0  # J per Wh
 # it no verdict about charging is given (a site at rest is not failing).
 TURNED_J = 100.0
 # no_charge: the battery gained no charge (net, from its state of charge) although the source
-# turned, and it never reached float (a full battery on float may lose a little to its loads).
+# turned, and it never reached absorption (a battery at its ceiling takes only a taper, and may
+# lose a little to its loads) nor started full (above this state of charge nothing is left to
+# gain).
 NO_CHARGE_AH = 0.0
+FULL_SOC = 0.995
 # source_below_battery: to push charge the buck needs d x bus > battery with d <= its max
 # duty, and the bridge drops 2 V_F; both are taken at this share of the charge limit (a
 # current worth calling charge).
@@ -488,7 +491,8 @@ class ServiceMeter:
                           " short by %.2f V" % (emf, sc.doc["machine"]["ke_v_per_krpm"],
                                                 self.rpm_max, self.t_rpm_max, need, parts,
                                                 need - emf)))
-            if net_ah <= NO_CHARGE_AH and self.t_float is None:
+            if (net_ah <= NO_CHARGE_AH and self.t_abs is None
+                    and sc.doc["battery"]["soc0"] < FULL_SOC):
                 bl = out["blocked"]
                 why = ""
                 if bl["total_s"]:

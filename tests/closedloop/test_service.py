@@ -139,6 +139,17 @@ def test_dead_wind_site_is_not_doing_its_job(tmp_path):
     assert summ["service"]["battery_ah"]["net"] <= 0.0
 
 
+def test_no_charge_spares_a_battery_that_started_full():
+    """A full block has nothing to gain; the same site half full and the source cut off
+    still gains nothing and is warned (the verdict is not simply switched off)."""
+    d = demo_short(30)
+    d["battery"]["soc0"] = 1.0
+    assert "no_charge" not in codes(run(d).service)
+    d["battery"]["soc0"] = 0.5
+    d["machine"]["ke_v_per_krpm"] = 5.0  # the rider turns, the bus never reaches the battery
+    assert "no_charge" in codes(run(d).service)
+
+
 # ---- profile_mismatch and its opt-out ---------------------------------------------------------
 
 def flooded_35ah(**top):
