@@ -118,11 +118,15 @@ def print_table(summ, out=sys.stdout):
     if bc.get("peak") is not None and bc.get("limit") is not None and bc["peak"] > bc["limit"]:
         print("batt_current: peak %.3f A at %.1f s, above the band for one period only (the rule "
               "excepts such transients)" % (bc["peak"], bc["t_peak_s"]), file=out)
-    print("energy: in %.1f kJ; battery %+.1f kJ, supercap %+.1f kJ, USB %.1f kJ, loads %.1f kJ; "
-          "balance error %.3f %%" % (e.get("drive_in_j", 0) / 1e3, e.get("batt_stored_j", 0) / 1e3,
-                                     e.get("cap_stored_j", 0) / 1e3, e.get("usb_out_j", 0) / 1e3,
-                                     e.get("loads_out_j", 0) / 1e3, summ["balance_error_pct"]),
-          file=out)
+    sv = summ.get("service")
+    if sv:
+        print_energy_wh(sv, summ["balance_error_pct"], out)
+    else:
+        print("energy: in %.1f kJ; battery %+.1f kJ, supercap %+.1f kJ, USB %.1f kJ, loads %.1f "
+              "kJ; balance error %.3f %%" % (
+                  e.get("drive_in_j", 0) / 1e3, e.get("batt_stored_j", 0) / 1e3,
+                  e.get("cap_stored_j", 0) / 1e3, e.get("usb_out_j", 0) / 1e3,
+                  e.get("loads_out_j", 0) / 1e3, summ["balance_error_pct"]), file=out)
     st = ", ".join("%s %.0f s" % (k, v) for k, v in summ["stage_time_s"].items() if v > 0)
     print("battery stages: %s; final SOC %.1f %%" % (st, 100 * summ["final"]["batt_soc"]), file=out)
     if summ["faults_seen"]:
@@ -135,19 +139,25 @@ def _f(x, fmt, none="-"):
     return none if x is None else fmt % x
 
 
-def print_service(sv, out=sys.stdout):
-    """The service figures, Wh and Ah first (docs/simulate.md)."""
+def print_energy_wh(sv, balance_error_pct, out=sys.stdout):
+    """Where the energy went, in Wh (kJ for the input), and the battery's charge in Ah."""
     e = sv["energy_wh"]
     each = "".join(" (%s)" % ", ".join("%s %.2f" % kv for kv in e["loads_each"].items())
                    if len(e["loads_each"]) > 1 else "")
-    print("service: in %.2f Wh; battery %+.2f Wh (%+.3f Ah net, %.3f Ah in), supercap %+.2f Wh, "
-          "USB %.2f Wh, loads %.2f Wh%s, dump %.2f Wh, losses %.2f Wh" % (
-              e["drive_in"] + e["surge_in"], e["battery"], sv["battery_ah"]["net"],
-              sv["battery_ah"]["in"], e["supercap"], e["usb"], e["loads"], each, e["dump"],
-              e["losses"]), file=out)
+    w_in = e["drive_in"] + e["surge_in"]
+    print("energy: in %.2f Wh (%.1f kJ); battery %+.2f Wh (%+.3f Ah net, %.3f Ah in), supercap "
+          "%+.2f Wh, USB %.2f Wh, loads %.2f Wh%s, dump %.2f Wh, losses %.2f Wh; balance error "
+          "%.3f %%" % (w_in, w_in * 3.6, e["battery"], sv["battery_ah"]["net"],
+                       sv["battery_ah"]["in"], e["supercap"], e["usb"], e["loads"], each,
+                       e["dump"], e["losses"], balance_error_pct), file=out)
+
+
+def print_service(sv, out=sys.stdout):
+    """The service figures (docs/simulate.md); the energy in Wh is print_energy_wh's line."""
     h = sv["harvest"]
     a = sv["acceptance"]
-    print("  harvest %s of the source's best (%s Wh offered)%s; dump share %s of the input" % (
+    print("service: harvest %s of the source's best (%s Wh offered)%s; dump share %s of the "
+          "input" % (
         _f(h["ratio"], "%.3f"), _f(h["offered_wh"], "%.2f"),
         " [%s]" % h["null_reason"] if h["null_reason"] else "",
         _f(sv["dump_share"], "%.3f")), file=out)
@@ -156,10 +166,10 @@ def print_service(sv, out=sys.stdout):
         a["bulk_s"], " [%s]" % a["null_reason"] if a["null_reason"] else ""), file=out)
     u = sv["usb"]
     bl = sv["blocked"]
-    print("  absorption at %s s, float at %s s; USB %.2f Wh, port on %.0f of %.0f s wanted; "
+    print("  absorption %s, float %s; USB %.2f Wh, port on %.0f of %.0f s wanted; "
           "blocked %.0f s%s" % (
-              _f(sv["time_to_absorption_s"], "%.1f", "never"),
-              _f(sv["time_to_float_s"], "%.1f", "never"), u["served_wh"], u["on_while_wanted_s"],
+              _f(sv["time_to_absorption_s"], "at %.1f s", "never"),
+              _f(sv["time_to_float_s"], "at %.1f s", "never"), u["served_wh"], u["on_while_wanted_s"],
               u["wanted_s"], bl["total_s"], " (%s)" % ", ".join(
                   "%s %.0f s" % kv for kv in bl["reasons_s"].items()) if bl["reasons_s"] else ""),
           file=out)
