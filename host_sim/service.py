@@ -65,6 +65,10 @@ CHATTER_WINDOW_S = 60.0
 # or below the tail) met for this many hold times in one spell that did not end.
 ABS_OVER_S = 60.0
 TAIL_HOLDS = 3.0
+# The bulk acceptance is not defined where the source could give the battery, on average over
+# bulk, less than this share of its charge limit: the ratio of two near-zero currents says
+# nothing (ours).
+ACCEPT_FLOOR = 0.02
 
 # fault bits that block the battery's charging (supervisor.py and leadacid.py); the others
 # (USB, supercap) can be set beside a block without being its reason
@@ -455,8 +459,9 @@ class ServiceMeter:
                                 + (self.best.null_reason or "no best power in some periods"))
             return d
         d["possible_a"] = _r(self.bulk_poss_as / self.bulk_s)
-        if self.bulk_poss_as <= 1e-9:
-            d["null_reason"] = "the source could give the battery nothing in bulk"
+        if self.bulk_poss_as <= ACCEPT_FLOOR * self.lim_a * self.bulk_s:
+            d["null_reason"] = ("the source could give the battery almost nothing in bulk (less "
+                                "than %.0f %% of its charge limit on average)" % (100 * ACCEPT_FLOOR))
             return d
         d["ratio"] = _r(self.bulk_as / self.bulk_poss_as)
         return d
