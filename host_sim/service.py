@@ -17,7 +17,6 @@ from controller.signals import (F_BATT_ABSENT, F_BATT_REVERSED, F_BATT_SENSOR, F
 from host_sim.limitcheck import CHARGING_A, ceiling_v
 from host_sim.plant.drive import Human, Hydro, Scripted, Wind
 from host_sim.plant.machine import RPM_PER_RAD_S
-from host_sim.scenario import MISMATCH_NAMES  # noqa: F401  (the names accept_mismatch takes)
 
 NAN = float("nan")
 WH = 3600.0  # J per Wh
