@@ -27,6 +27,8 @@ TABLE_CELLS = 6
 _MIN_STEP_A = 0.01  # a smaller step cannot show the resistances above ADC noise
 _SAME = 0.05  # rows within 5 % of the step of a level's current belong to that level
 _MIN_POST = 8  # rows after the step the relaxation fit needs
+_F_WARN = 8.0  # F of a second time constant above which the relaxation is called two-pair
+_DRIFT_WARN_V = 0.005  # a rest moving more than 5 mV (about 0.7 % SOC on a 12 V block): unrested
 _PRE_LINE = 10  # rows of a line read at the step when the old level carries a current
 _WANT_PRE = 20  # rows at the old level below which the log is called short
 _WANT_POST = 30  # rows after the step below which the log is called short
@@ -108,12 +110,39 @@ def fit_relaxation(x_s, v, drift=False, floor_var=0.0):
     return theta, cov, v - _basis(x_s, tau, drift) @ beta, dof, at_edge
 
 
+def second_pair_f(x_s, v, drift, sse_one, tau_s, floor_var=0.0):
+    """F statistic of a second exponential (a second RC pair) over the one-pair fit: the sum of
+    squares the best pair of time constants removes, per added parameter (2), over the two-pair
+    residual variance. tau_1 is searched around the one-pair tau_s, tau_2 over the whole log on
+    a log grid. The search inflates F, so the threshold (_F_WARN) sits well above the F
+    table's 99.9 % point (about 7 for these sizes)."""
+    n = len(x_s)
+    dx = float(np.min(np.diff(x_s))) if n > 1 else float(x_s[-1])
+    t1s = tau_s * np.exp(np.linspace(-1.2, 1.2, 13))
+    t2s = np.exp(np.linspace(math.log(max(dx, 1e-9)), math.log(3 * x_s[-1]), 30))
+    best = sse_one
+    one = np.ones_like(x_s)
+    for t1 in t1s:
+        e1 = np.exp(-x_s / t1)
+        for t2 in t2s:
+            if abs(math.log(t2 / t1)) < 0.5:
+                continue
+            X = np.column_stack([one, e1, np.exp(-x_s / t2)] + ([x_s] if drift else []))
+            r = v - X @ np.linalg.lstsq(X, v, rcond=None)[0]
+            best = min(best, float(r @ r))
+    p2 = (4 if drift else 3) + 2
+    if n - p2 < 3:
+        return 0.0
+    return ((sse_one - best) / 2) / max(best / (n - p2), floor_var)
+
+
 class BatteryFit:
     def __init__(self):
         self.t_step_s = 0.0  # the step: the middle of the row gap before the new current, s
         self.gap_s = 0.0  # that row gap, s
         self.u_cal = {}  # standard uncertainties from the meter's calibration
         self.r0_ci_noise = self.rp_ci_noise = self.tau_ci_noise = self.ocv_ci_noise = 0.0
+        self.second_pair_f = 0.0  # F statistic of a second time constant
         self.soc_ci_table = 0.0  # the SOC interval with the generic table's spread added
         self.i_pre_a = self.i_post_a = 0.0  # currents before and after the step, A
         self.rest_a = _MIN_STEP_A  # currents within +/- this count as rest, A
@@ -299,13 +328,18 @@ def identify(log, cells=TABLE_CELLS, cal=None):
              "extrapolated over the gap (its uncertainty is in the intervals); log faster around "
              "the step" % (e["gap"], tau))
     z = runs_z(e["resid"])
-    if z < RUNS_Z_WARN:
+    resid = e["resid"]
+    f2 = second_pair_f(x, v[k:end], fit.drift, float(resid @ resid), tau,
+                       resolution(v) ** 2 / 12)
+    fit.second_pair_f = f2
+    if z < RUNS_Z_WARN or f2 > _F_WARN:
         warn("model mismatch: the relaxation is not one exponential (runs test z = %.1f on its "
-             "residuals): a second, slower time constant (two RC pairs) or a drifting state; "
-             "R_p and tau are then a compromise and their intervals do not cover it" % z)
+             "residuals, F = %.0f for a second time constant): a second, slower time constant "
+             "(two RC pairs) or a drifting state; R_p and tau are then a compromise and their "
+             "intervals do not cover it" % (z, f2))
     rested_before = abs(fit.i_pre_a) <= fit.rest_a
-    if rested_before and e["pre_slope"] is not None:
-        change = e["pre_slope"] * (t[k - 1] - t[first])
+    change = (e["pre_slope"] or 0.0) * (t[k - 1] - t[first])
+    if rested_before and abs(change) > _DRIFT_WARN_V:
         warn("unrested start: the voltage before the step still moves %+.4f V over lines %d-%d "
              "(%.3g mV/min): the battery had not settled, so the open-circuit voltage and the "
              "state of charge are not those of a rested battery; rest longer before the step"

@@ -236,7 +236,7 @@ def combine(ci_noise, u_cal):
 
 # ---- checks of the log itself -----------------------------------------------------------------
 _CLIP_MIN_ROWS = 3
-_CLIP_FRAC = 0.02
+_CLIP_PILE = 2  # rows at the extreme over rows at the next level in
 _HELD_RUN = 8
 
 
@@ -257,7 +257,12 @@ def check_clipping(log, cols, rows=None):
             if val == 0:
                 continue
             at = np.nonzero(x == val)[0]
-            if len(at) >= _CLIP_MIN_ROWS and len(at) >= _CLIP_FRAC * len(x):
+            # a pile at the end of the range: many rows at exactly the extreme, against the
+            # next reading inwards (noise spreads the top levels evenly; a full scale does not)
+            inner = x[x < val] if which == "largest" else x[x > val]
+            nxt = np.sum(inner == (np.max(inner) if which == "largest" else np.min(inner))) \
+                if len(inner) else 0
+            if len(at) >= _CLIP_MIN_ROWS and len(at) >= _CLIP_PILE * max(nxt, 1):
                 out.append("column '%s' reads exactly %g in %d rows (its %s value, lines %d-%d): "
                            "clipped at the meter's full scale, or a held reading? those rows "
                            "bias the fit" % (c, val, len(at), which, lines[at[0]], lines[at[-1]]))

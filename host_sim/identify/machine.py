@@ -162,15 +162,19 @@ def _structure(X, v_term, omega, i_a, loaded, params, floor):
     drop that saturates) or heating shows as I|I| on loaded rows; a speed-dependent EMF (iron
     loss, a mis-scaled tachometer at one end) as w|w|."""
     out = []
+    i_max = float(np.max(np.abs(i_a))) or 1.0
     extra = [("I|I|", -i_a * np.abs(i_a) * loaded,
-              "the terminal voltage bends with current: a brush or contact drop that changes "
-              "with current (it saturates), or heating of the winding; R_a and the drop are "
-              "then an average over the logged currents"),
+              "the terminal voltage falls faster than linearly with current: heating of the "
+              "winding, or a drop that grows with current; R_a is then an average over the "
+              "logged currents"),
+             ("log(1 + 5 I/I_max)", -np.sign(i_a) * np.log1p(5 * np.abs(i_a) / i_max) * loaded,
+              "the drop levels off with current (a brush contact drop that saturates): R_a "
+              "and the drop are then an average over the logged currents and biased"),
              ("w|w|", omega * np.abs(omega),
               "the open-circuit voltage is not proportional to speed: check the tachometer, or "
               "a rectifier in the voltage lead")]
     for name, col, why in extra:
-        if name == "I|I|" and ("ra" not in params or len(np.unique(np.round(i_a[loaded], 6))) < 3):
+        if name != "w|w|" and ("ra" not in params or len(np.unique(np.round(i_a[loaded], 6))) < 3):
             continue
         Xa = np.column_stack([X, col])
         if len(v_term) - Xa.shape[1] < 3 or np.linalg.matrix_rank(Xa) < Xa.shape[1]:

@@ -34,6 +34,7 @@ _FLOWING = 0.05  # rows with |i_a| above 5 % of the largest count as discharging
 _STEADY = 0.02  # the method wants a constant current: warn beyond 2 % variation
 _REST_ROWS = 20  # the held voltage: mean of up to this many rows before the discharge
 _BAND = 0.01  # crossing times from a local line through samples within 1 % of U_R of the level
+_DRIFT_WARN = 0.001  # a held voltage moving more than 0.1 % of U_R over the rest: unrested
 _WANT_LINE = 20  # rows on the straight part below which the log is called short
 _WANT_REST = 10  # rows of held voltage below which the start is called short
 
@@ -57,6 +58,7 @@ class CapResult:
         self.t0_s = 0.0  # start of the discharge (first discharging row), s
         self.line = (0.0, 0.0)  # straight part: v = a + b (t - t0_s)
         self.flags = []  # reasons this cell stands out from the bank
+        self.starts_below_u1 = False  # the resistive drop alone took the bank below U1
         self.n_line = 0  # rows on the straight part between U1 and U2
         self.runs_z = 0.0  # runs-test z of the straight part's residuals
         self.rest_drift_v = None  # change of the held voltage over the rest, when it moved
@@ -114,6 +116,7 @@ def analyse(t, v, i_mag, k0, u_r, name, upper=UPPER_FRAC, lower=LOWER_FRAC, wher
                         "(%.0f %% and %.0f %% of U_R = %.3f V); its lowest reading is %.3f V"
                         % (where, name, r.u1_v, r.u2_v, 100 * upper, 100 * lower, u_r, vd.min()))
     r.t1_s, r.t2_s = float(t1), float(t2)
+    r.starts_below_u1 = bool(vd[0] <= r.u1_v)
     seg = (td >= t1) & (td <= t2)
     if seg.sum() < 3:
         raise UserError("%s%s: only %d samples between U1 and U2; log faster (the straight part "
@@ -196,7 +199,8 @@ def identify(log, rated_v=None, upper=UPPER_FRAC, lower=LOWER_FRAC, spread_pct=1
     i_mag = np.abs(i_a)
     # keep the discharge only: rows after the current stops belong to the recovery
     t, i_mag = t[:end], i_mag[:end]
-    spread = np.ptp(i_mag[k0:]) / np.mean(i_mag[k0:])
+    # the current's range without its noise tails (1st to 99th percentile)
+    spread = float(np.diff(np.percentile(i_mag[k0:], [1, 99]))[0]) / np.mean(i_mag[k0:])
     if spread > _STEADY:
         warnings.append("the discharge current varies by %.1f %% (the method wants it constant)"
                         % (100 * spread))
@@ -229,11 +233,15 @@ def identify(log, rated_v=None, upper=UPPER_FRAC, lower=LOWER_FRAC, spread_pct=1
     warnings += check_clipping(log, ["v"] + names, slice(0, end))
     warnings += check_rows(bank.n_line, _WANT_LINE, "between U1 and U2")
     warnings += check_rows(k0, _WANT_REST, "of held voltage before the discharge")
-    if bank.rest_drift_v is not None:
+    if bank.rest_drift_v is not None and abs(bank.rest_drift_v) > _DRIFT_WARN * bank.u_r_v:
         warnings.append("unrested start: the held voltage moves %+.4f V over the %d rows before "
                         "the discharge (the method holds the bank at U_R until it is steady); "
                         "the start voltage is the line through them read at the step, and U_R "
                         "is uncertain by that much" % (bank.rest_drift_v, k0))
+    if bank.starts_below_u1:
+        warnings.append("the first discharging row is already below U1: the resistive drop I R "
+                        "takes the bank past the upper point, so t1 and C are wrong; discharge "
+                        "at a smaller current (the method keeps I R to a few %% of U_R)")
     if bank.runs_z < RUNS_Z_WARN:
         warnings.append("model mismatch: the discharge between U1 and U2 is not a straight line "
                         "(runs test z = %.1f): capacitance that changes with voltage, a current "
