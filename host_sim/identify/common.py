@@ -235,7 +235,7 @@ def combine(ci_noise, u_cal):
 
 
 # ---- checks of the log itself -----------------------------------------------------------------
-_CLIP_MIN_ROWS = 3
+_CLIP_MIN_ROWS = 4
 _CLIP_PILE = 2  # rows at the extreme over rows at the next level in
 _HELD_RUN = 8
 

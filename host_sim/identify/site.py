@@ -66,14 +66,15 @@ def charge_warning(h):
     """The warning text for a headroom dict, or None when the working speed clears the need."""
     if h is None or h["charges_at_working"]:
         return None
-    tail = ("even unloaded at its top speed (%.0f rpm, EMF %.2f V) it does not: this site "
-            "cannot charge its battery" % (h["machine_rpm_top"], h["emf_top_v"])
-            if not h["charges_at_top"] else
-            "only above the working speed, up to %.0f rpm (EMF %.2f V), off the drive's best "
-            "point" % (h["machine_rpm_top"], h["emf_top_v"]))
+    if h["charges_at_top"]:
+        tail = ("it charges only above the working speed, near its top of %.0f rpm (EMF %.2f V), "
+                "off the drive's best point" % (h["machine_rpm_top"], h["emf_top_v"]))
+    else:
+        tail = ("even unloaded at the drive's top speed (%.0f machine rpm, EMF %.2f V) it does "
+                "not: this site cannot charge its battery" % (h["machine_rpm_top"], h["emf_top_v"]))
     return ("the machine cannot charge the battery at the drive's working speed: EMF %.2f V at "
             "%.0f machine rpm, but the battery buck needs %.2f V (battery %.2f V / max_duty, plus "
-            "%.2f V for two bridge diodes); it charges %s. Check K_e and the gear ratio"
+            "%.2f V for two bridge diodes); %s. Check K_e and the gear ratio"
             % (h["emf_working_v"], h["machine_rpm_working"], h["need_v"], h["battery_ocv_v"],
                h["bridge_v"], tail))
 
