@@ -42,9 +42,10 @@ def _common(p):
     p.add_argument("--json", action="store_true", help="print the result as JSON on stdout: "
                    "values, 95 %% intervals, method, source, calibration, warnings")
     p.add_argument("--gain-tol-pct", type=float, default=DEFAULT_GAIN_TOL_PCT, metavar="PCT",
-                   help="meter gain tolerance, %% of reading, for every logged voltage, current "
-                        "and speed (default %g %%: a handheld multimeter's DC accuracy, common "
-                        "practice; give your meters' figure)" % DEFAULT_GAIN_TOL_PCT)
+                   help="meter gain tolerance, %%%% of reading, for every logged voltage, "
+                        "current and speed (default %g %%%%: a handheld multimeter's DC "
+                        "accuracy, common practice; give your meters' figure)"
+                        % DEFAULT_GAIN_TOL_PCT)
     p.add_argument("--offset-v", type=float, default=0.0, metavar="V",
                    help="voltage meter offset tolerance, V (default 0: a meter zeroed before "
                         "the run)")
@@ -89,7 +90,7 @@ def register(sub):
                     "straight part of the discharge extrapolated back to the moment the current "
                     "started. Every value comes from your log (the crossing times, a straight "
                     "line fitted between U1 and U2, the held voltage, the mean current); the "
-                    "80/40 %% points are the standard's as recalled (from memory), and --points "
+                    "80/40 % points are the standard's as recalled (from memory), and --points "
                     "moves them.")
     _common(sp)
     sp.add_argument("--rated-v", type=float, metavar="V",

@@ -4,7 +4,6 @@
 import csv
 import json
 import math
-import os
 import re
 import sys
 

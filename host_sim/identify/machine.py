@@ -9,7 +9,7 @@ import math
 import numpy as np
 
 from host_sim.errors import UserError
-from host_sim.identify.common import (Calibration, calibration_from, calibration_u, check_clipping,
+from host_sim.identify.common import (calibration_from, calibration_u, check_clipping,
                                       check_magnitude, check_rows, combine, diag, emit, linfit,
                                       new_figure, pm, quantity, read_log, resolution,
                                       save_figure, t975, table, write_result)

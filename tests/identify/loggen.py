@@ -33,7 +33,8 @@ class Meter:
 
     def read(self, x):
         x = np.asarray(x, dtype=float)
-        r = x * self.gain + self.rng.normal(0.0, 1.0, x.shape) * (self.floor + self.frac * np.abs(x))
+        sigma = self.floor + self.frac * np.abs(x)
+        r = x * self.gain + self.rng.normal(0.0, 1.0, x.shape) * sigma
         r = np.round(r / self.step) * self.step
         if self.fs is not None:
             r = np.clip(r, -self.fs, self.fs)

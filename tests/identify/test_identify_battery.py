@@ -1,6 +1,7 @@
 """identify battery: ohmic jump, one polarisation time constant and state of charge from logs
 the plant battery (host_sim/plant/battery.py) writes with noise; the BCI open-circuit table
-(check-values.md: flooded 12 V block, rested, 26.7 C); the fragment feeds the plant back."""
+(Battery Council International: flooded 12 V block, rested, 26.7 C); the fragment feeds the
+plant back."""
 import json
 
 import numpy as np
@@ -30,7 +31,7 @@ def load(p):
 @pytest.mark.parametrize("ocv_v, soc", [(12.65, 100), (12.45, 75), (12.24, 50), (12.06, 25),
                                         (11.89, 0), (12.345, 62.5), (12.15, 37.5)])
 def test_bci_table_and_interpolation(ocv_v, soc):
-    # check-values.md, open-circuit voltage vs state of charge (BCI table, flooded, 26.7 C):
+    # open-circuit voltage vs state of charge (BCI table, flooded, 26.7 C):
     # the table points exactly, and straight-line interpolation halfway between two of them
     assert soc_from_ocv(ocv_v)[0] == pytest.approx(soc, abs=1e-9)
 

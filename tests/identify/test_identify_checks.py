@@ -155,3 +155,15 @@ def test_clipped_and_held_readings_are_named(spinrail, tmp_path):
     benchgen.write_csv(p, ("t_s", "v", "i_a"), (t, v, i), ("%.2f", "%.4f", "%.4f"))
     rc, out, err = spinrail("identify", "supercap", p, "--cells", 6)
     assert rc == 0 and "unchanged for 12 rows" in err
+
+
+@pytest.mark.parametrize("part", ["machine", "supercap", "battery"])
+def test_help_prints_and_names_method_and_sources(part, capsys):
+    from tests.identify.conftest import _parser
+    with pytest.raises(SystemExit) as e:
+        _parser().parse_args(["identify", part, "--help"])
+    assert e.value.code == 0
+    text = capsys.readouterr().out
+    assert "--json" in text and "--gain-tol-pct" in text and "0.5 %" in text
+    assert "until checked" not in text and "check-values" not in text
+    assert {"machine": "HC3", "supercap": "IEC 62391-1", "battery": "Battery Council"}[part] in text

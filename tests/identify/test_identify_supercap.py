@@ -1,6 +1,6 @@
-"""identify supercap: the IEC 62391-1 constant-current method (check-values.md supercap rows; the
-80 %/40 % points and the extrapolation detail are from memory there) against its worked
-example, against closed-form discharges and against the plant bank (host_sim/plant/supercap.py)."""
+"""identify supercap: the IEC 62391-1 constant-current method (its 80 %/40 % points from memory)
+against its worked example, against closed-form discharges and against the plant bank
+(host_sim/plant/supercap.py)."""
 import json
 
 import numpy as np
@@ -45,7 +45,7 @@ def load(path):
 
 
 def test_worked_example_formula():
-    # check-values.md supercap worked example: 0.1 A for 10 s taking 5.0 V to 4.2 V gives 1.25 F
+    # worked example: 0.1 A for 10 s taking 5.0 V to 4.2 V gives 1.25 F
     assert capacitance_f(0.1, 0.0, 10.0, 5.0, 4.2) == pytest.approx(1.25, rel=1e-12)
 
 
