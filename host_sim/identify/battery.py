@@ -388,7 +388,8 @@ def report(fit):
             "26.7 C (Battery Council International, as commonly reproduced; from memory), "
             "scaled to %d cells; a real block sits several %% SOC off a generic table "
             "(chemistry, temperature, age: from memory), which the first interval leaves out; "
-            "for AGM or gel use the maker's table\nmethod: %s." % (fit.cells, METHOD))
+            "for AGM or gel use the maker's table\nmethod: %s.\nsource: %s."
+            % (fit.cells, METHOD, SOURCE))
     return table(rows) + "\n" + note
 
 

@@ -340,11 +340,26 @@ def quantity(value, ci95, unit, **extra):
     return d
 
 
+def _finite(x):
+    """A JSON-safe copy: numpy scalars as Python numbers, a non-finite number as null."""
+    if isinstance(x, dict):
+        return {k: _finite(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_finite(v) for v in x]
+    if isinstance(x, (bool, np.bool_)):
+        return bool(x)
+    if isinstance(x, (int, np.integer)):
+        return int(x)
+    if isinstance(x, (float, np.floating)):
+        return float(x) if math.isfinite(x) else None
+    return x
+
+
 def emit(args, result, text):
     """Print a result: the table (or with --json the whole result as JSON) on stdout, every
     warning on stderr."""
     if getattr(args, "json", False):
-        print(json.dumps(result, indent=2, allow_nan=False, default=float))
+        print(json.dumps(_finite(result), indent=2, allow_nan=False))
     else:
         print(text)
     for w in result["warnings"]:

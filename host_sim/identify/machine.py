@@ -270,5 +270,5 @@ def run(args):
             diag("note: the scenario has no brush-drop field; V_brush = %.3g V is not written"
                  % fit.value["vb"])
         write_result(args, result, "machine", fit.fragment())
-    emit(args, result, report(fit) + "\nmethod: " + METHOD + ".")
+    emit(args, result, report(fit) + "\nmethod: " + METHOD + ".\nsource: " + SOURCE + ".")
     return 0
