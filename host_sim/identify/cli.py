@@ -1,6 +1,7 @@
 # `spinrail identify machine|supercap|battery LOG.csv`: the command-line side of the
 # identifiers. Results on stdout, warnings on stderr; --write adds a section to a JSON fragment.
 from host_sim.errors import UserError
+from host_sim.identify.common import DEFAULT_GAIN_TOL_PCT
 
 
 def _points(text):
@@ -34,8 +35,23 @@ def _common(p):
     p.add_argument("log", metavar="LOG.csv", help="bench log (CSV with a header line; columns and "
                    "units: docs/identify.md)")
     p.add_argument("--plot", metavar="PNG", help="write a plot of the fit to this PNG file")
-    p.add_argument("--write", metavar="FILE", help="write the result as a JSON fragment (other "
-                   "sections of an existing fragment are kept)")
+    p.add_argument("--write", metavar="FILE", help="merge the result into this scenario (or "
+                   "fragment) file: the merged scenario is validated first, each field changed "
+                   "is printed old -> new, and a machine that cannot charge the site's battery "
+                   "is warned about")
+    p.add_argument("--json", action="store_true", help="print the result as JSON on stdout: "
+                   "values, 95 %% intervals, method, source, calibration, warnings")
+    p.add_argument("--gain-tol-pct", type=float, default=DEFAULT_GAIN_TOL_PCT, metavar="PCT",
+                   help="meter gain tolerance, %%%% of reading, for every logged voltage, "
+                        "current and speed (default %g %%%%: a handheld multimeter's DC "
+                        "accuracy, common practice; give your meters' figure)"
+                        % DEFAULT_GAIN_TOL_PCT)
+    p.add_argument("--offset-v", type=float, default=0.0, metavar="V",
+                   help="voltage meter offset tolerance, V (default 0: a meter zeroed before "
+                        "the run)")
+    p.add_argument("--offset-a", type=float, default=0.0, metavar="A",
+                   help="current meter offset tolerance, A (default 0: a meter zeroed before "
+                        "the run)")
 
 
 def register(sub):
@@ -52,7 +68,10 @@ def register(sub):
         "machine", help="K_e, R_a (and brush drop) from open-circuit and loaded runs",
         description="Least-squares fit of V_term = K_e w - R_a I - V_b sgn(I) to rows of rpm, "
                     "v_term, i_a (i_a = 0 on open circuit, + while the machine delivers), with "
-                    "95 % intervals. Warns when the data cannot separate the parameters.")
+                    "95 % intervals from the HC3 heteroscedasticity-robust covariance "
+                    "(MacKinnon & White 1985) and the meters' calibration tolerance. Warns when "
+                    "the data cannot separate the parameters, when the residuals show structure "
+                    "the model lacks, and on clipped or held readings.")
     _common(mp)
     mp.add_argument("--brush", choices=("auto", "fit", "none"), default="auto",
                     help="brush or diode drop: fit it when the data support it (auto, default), "
@@ -63,10 +82,16 @@ def register(sub):
 
     sp = isub.add_parser(
         "supercap", help="capacitance and DC resistance from a constant-current discharge",
-        description="IEC 62391-1 constant-current method on a log of t_s, v, i_a (optional "
-                    "cell1..cellN): C = I (t2 - t1) / (U1 - U2) at 80 % and 40 % of U_R, R from "
-                    "the initial drop extrapolated back to the start. The 80/40 % points and the "
-                    "extrapolation detail are from memory until checked against the standard.")
+        description="The constant-current discharge method of IEC 62391-1 (capacitance and "
+                    "internal resistance) on a log of t_s, v, i_a (optional cell1..cellN): "
+                    "charge to U_R, hold, discharge at constant current I; capacitance C = I "
+                    "(t2 - t1) / (U1 - U2) between U1 = 0.8 U_R and U2 = 0.4 U_R; internal "
+                    "resistance R = dU3 / I, dU3 the drop between the held voltage and the "
+                    "straight part of the discharge extrapolated back to the moment the current "
+                    "started. Every value comes from your log (the crossing times, a straight "
+                    "line fitted between U1 and U2, the held voltage, the mean current); the "
+                    "80/40 % points are the standard's as recalled (from memory), and --points "
+                    "moves them.")
     _common(sp)
     sp.add_argument("--rated-v", type=float, metavar="V",
                     help="rated voltage U_R of the bank (default: the held voltage before the "
@@ -84,9 +109,13 @@ def register(sub):
     bp = isub.add_parser(
         "battery", help="ohmic and polarisation resistance, time constant, state of charge",
         description="From a current step in a log of t_s, v, i_a (+ into the battery): R_0 from "
-                    "the instantaneous jump, R_p and tau from an exponential fit of the "
-                    "relaxation, state of charge from a rested open-circuit voltage (BCI table, "
-                    "flooded, 26.7 C, scaled per cell).")
+                    "the jump read at the step's own time (the middle of the row gap), R_p and "
+                    "tau from an exponential fit of the relaxation, the open-circuit voltage "
+                    "from the whole rest and the state of charge from the BCI open-circuit "
+                    "table (flooded 12 V block, rested, 80 F = 26.7 C, scaled per cell: Battery "
+                    "Council International, Battery Service Manual, as commonly reproduced; from "
+                    "memory). Methods and sources: "
+                    "docs/identify.md.")
     _common(bp)
     bp.add_argument("--cells", type=int, default=6,
                     help="cells in series (default 6: a 12 V block)")

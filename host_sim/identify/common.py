@@ -4,14 +4,13 @@
 import csv
 import json
 import math
-import os
 import re
 import sys
 
 import numpy as np
 
 from host_sim.errors import UserError
-from host_sim.fileio import atomic_open, write_json
+from host_sim.fileio import atomic_open
 
 
 class Log:
@@ -125,17 +124,183 @@ def t975(dof):
     return x + g1 / n + g2 / n ** 2 + g3 / n ** 3 + g4 / n ** 4
 
 
-def linfit(X, y):
-    """Ordinary least squares. Returns (beta, cov, resid, dof); cov from the residual variance
-    s^2 (X'X)^-1. X must have full column rank (the callers check identifiability first)."""
+def linfit(X, y, robust=False, floor_var=0.0):
+    """Ordinary least squares. Returns (beta, cov, resid, dof). cov is s^2 (X'X)^-1 from the
+    residual variance s^2 (at least floor_var: a reading's quantisation q^2/12), or with
+    robust=True the HC3 heteroscedasticity-consistent covariance (MacKinnon & White 1985;
+    recommended for small samples by Long & Ervin 2000): (X'X)^-1 X' diag(e_i^2 / (1 - h_i)^2)
+    X (X'X)^-1, e_i^2 floored the same way. X must have full column rank."""
     beta, _, rank, _ = np.linalg.lstsq(X, y, rcond=None)
     if rank < X.shape[1]:
         raise ValueError("linfit: design matrix is rank deficient")
     resid = y - X @ beta
     dof = len(y) - X.shape[1]
-    s2 = float(resid @ resid) / dof if dof > 0 else float("nan")
-    cov = s2 * np.linalg.inv(X.T @ X)
+    xtx_inv = np.linalg.inv(X.T @ X)
+    if robust:
+        h = np.einsum("ij,jk,ik->i", X, xtx_inv, X)
+        e2 = np.maximum(resid ** 2, floor_var) / np.maximum(1.0 - h, 1e-9) ** 2
+        cov = xtx_inv @ (X.T * e2) @ X @ xtx_inv
+    else:
+        s2 = float(resid @ resid) / dof if dof > 0 else float("nan")
+        cov = max(s2, floor_var) * xtx_inv
     return beta, cov, resid, dof
+
+
+def resolution(x):
+    """The reading step of a column: the smallest gap between its distinct values (0 when the
+    column holds one value). Quantisation adds q^2/12 to each reading's variance (a uniform
+    rounding error; GUM JCGM 100:2008, F.2.2.1)."""
+    u = np.unique(np.asarray(x, dtype=float))
+    if len(u) < 2:
+        return 0.0
+    return float(np.min(np.diff(u)))
+
+
+def runs_z(resid):
+    """Wald-Wolfowitz runs test on the signs of residuals in their logged order: z of the number
+    of sign runs against its mean and variance for independent signs (any nonparametric
+    statistics text). z well below zero (long runs) means structure the model does not have."""
+    s = np.sign(np.asarray(resid, dtype=float))
+    s = s[s != 0]
+    n1, n2 = int(np.sum(s > 0)), int(np.sum(s < 0))
+    n = n1 + n2
+    if n1 < 2 or n2 < 2:
+        return 0.0
+    runs = 1 + int(np.sum(s[1:] != s[:-1]))
+    mu = 2.0 * n1 * n2 / n + 1
+    var = 2.0 * n1 * n2 * (2.0 * n1 * n2 - n) / (n * n * (n - 1))
+    return (runs - mu) / math.sqrt(var) if var > 0 else 0.0
+
+
+RUNS_Z_WARN = -3.0  # about 1 in 700 for a right model: a warning, not a verdict
+
+
+# ---- calibration ------------------------------------------------------------------------------
+# Every interval would otherwise cover noise only. The meter's gain tolerance (percent of the
+# reading) and its offset tolerance (V, A) are treated as rectangular distributions of
+# half-width tol (GUM JCGM 100:2008, 4.3.7: standard uncertainty tol / sqrt 3). Their effect on
+# each result is found by refitting the log with each reading scaled or shifted by one standard
+# uncertainty (a one-sided finite difference: the fits are smooth in the readings), combined
+# in quadrature, and added to the noise interval at a 95 % coverage factor of 2.
+DEFAULT_GAIN_TOL_PCT = 0.5  # a handheld DMM's DC basic accuracy is 0.05-1 %: common practice
+K_CAL = 2.0  # coverage factor of the calibration part (GUM 6.3.3, about 95 %)
+
+
+class Calibration:
+    def __init__(self, gain_tol_pct=DEFAULT_GAIN_TOL_PCT, offset_v=0.0, offset_a=0.0):
+        self.gain_tol_pct = gain_tol_pct
+        self.offset_v = offset_v
+        self.offset_a = offset_a
+
+    def perturbations(self, cols):
+        """(column, kind, standard uncertainty) for each reading column: kind 'gain' (relative)
+        or 'offset' (absolute, in the column's unit). cols: name -> 'V', 'A' or 'rpm'."""
+        out = []
+        for c, unit in cols.items():
+            if self.gain_tol_pct > 0:
+                out.append((c, "gain", self.gain_tol_pct / 100 / math.sqrt(3)))
+            off = {"V": self.offset_v, "A": self.offset_a}.get(unit, 0.0)
+            if off > 0:
+                out.append((c, "offset", off / math.sqrt(3)))
+        return out
+
+    def to_json(self):
+        return {"gain_tol_pct": self.gain_tol_pct, "offset_v": self.offset_v,
+                "offset_a": self.offset_a, "distribution": "rectangular (GUM 4.3.7)",
+                "coverage_factor": K_CAL}
+
+
+def calibration_u(fit_fn, data, units, cal):
+    """Standard uncertainty of each result from the meter's calibration. fit_fn(data) -> dict
+    key -> value; data: column -> array; units: column -> 'V', 'A' or 'rpm'. Returns key -> u."""
+    base = fit_fn(data)
+    acc = {k: 0.0 for k in base}
+    for c, kind, u in cal.perturbations(units):
+        d = dict(data)
+        d[c] = data[c] * (1 + u) if kind == "gain" else data[c] + u * np.sign(data[c] + 1e-300)
+        try:
+            got = fit_fn(d)
+        except (UserError, ValueError, np.linalg.LinAlgError):
+            continue
+        for k in acc:
+            if k in got and math.isfinite(got[k]):
+                acc[k] += (got[k] - base[k]) ** 2
+    return {k: math.sqrt(v) for k, v in acc.items()}
+
+
+def combine(ci_noise, u_cal):
+    """95 % half-width from the noise part (already t x s) and the calibration part."""
+    return math.hypot(ci_noise, K_CAL * u_cal)
+
+
+# ---- checks of the log itself -----------------------------------------------------------------
+_CLIP_MIN_ROWS = 4
+_CLIP_PILE = 2  # rows at the extreme over rows at the next level in
+_HELD_RUN = 8
+
+
+def check_clipping(log, cols, rows=None):
+    """Warnings for columns whose largest or smallest reading repeats exactly in several rows (a
+    meter or ADC at full scale, or a held reading), and for runs of identical readings where the
+    rest of the column scatters (zero scatter where noise is expected). rows: a slice or index
+    array to check (default all)."""
+    out = []
+    for c in cols:
+        if c not in log.col:
+            continue
+        x = log.col[c] if rows is None else log.col[c][rows]
+        lines = log.line if rows is None else log.line[rows]
+        if len(x) < 5:
+            continue
+        for which, val in (("largest", np.max(x)), ("smallest", np.min(x))):
+            if val == 0:
+                continue
+            at = np.nonzero(x == val)[0]
+            # a pile at the end of the range: many rows at exactly the extreme, against the
+            # next reading inwards (noise spreads the top levels evenly; a full scale does not)
+            inner = x[x < val] if which == "largest" else x[x > val]
+            nxt = np.sum(inner == (np.max(inner) if which == "largest" else np.min(inner))) \
+                if len(inner) else 0
+            if len(at) >= _CLIP_MIN_ROWS and len(at) >= _CLIP_PILE * max(nxt, 1):
+                out.append("column '%s' reads exactly %g in %d rows (its %s value, lines %d-%d): "
+                           "clipped at the meter's full scale, or a held reading? those rows "
+                           "bias the fit" % (c, val, len(at), which, lines[at[0]], lines[at[-1]]))
+                break
+        else:
+            same = np.concatenate([[False], np.diff(x) == 0])
+            run = best = 0
+            end = 0
+            for j, s in enumerate(same):
+                run = run + 1 if s else 0
+                if run > best:
+                    best, end = run, j
+            if best + 1 >= _HELD_RUN and np.any(np.diff(x) != 0):
+                out.append("column '%s' holds %g unchanged for %d rows (lines %d-%d) while it "
+                           "scatters elsewhere: a held or stuck reading; noise there cannot be "
+                           "estimated" % (c, x[end], best + 1, lines[end - best], lines[end]))
+    return out
+
+
+def check_rows(n, wanted, what):
+    """A warning when fewer rows than wanted carry a quantity (the interval then rests on few
+    degrees of freedom, and the structure checks cannot see much)."""
+    if n < wanted:
+        return ["only %d rows %s (%d or more wanted): the interval rests on few degrees of "
+                "freedom" % (n, what, wanted)]
+    return []
+
+
+def check_magnitude(log, col, lo, hi, unit, hint):
+    """Refuse a column whose readings lie outside a physical range (a log in mV or mA)."""
+    x = np.abs(log.col[col])
+    big = float(np.max(x))
+    if big > hi:
+        i = int(np.argmax(x))
+        raise UserError("%s = %g: above %g %s, outside any part this tool models; %s"
+                        % (log.where(i, col), log.col[col][i], hi, unit, hint))
+    if lo is not None and big < lo:
+        raise UserError("%s: largest reading %g is below %g %s; %s"
+                        % (log.path + ": column '%s'" % col, big, lo, unit, hint))
 
 
 def table(rows):
@@ -150,11 +315,55 @@ def table(rows):
     return "\n".join(out)
 
 
+def decimals(dx):
+    """Decimal places that show a half-width to two significant digits."""
+    if dx is None or not math.isfinite(dx) or dx <= 0:
+        return None
+    return max(0, 1 - int(math.floor(math.log10(dx))))
+
+
 def pm(x, dx, digits=4):
-    """(value text, '+/- text') with the same number of significant digits."""
-    if dx is None or not math.isfinite(dx):
+    """(value text, '+/- text'): the value printed to the precision of its interval (the
+    interval to two significant digits, the value to the same decimal place)."""
+    d = decimals(dx)
+    if d is None:
         return "%.*g" % (digits, x), "n/a"
-    return "%.*g" % (digits, x), "+/- %.2g" % dx
+    if d == 0:
+        return "%.0f" % x, "+/- %.2g" % dx
+    return "%.*f" % (d, x), "+/- %.*f" % (d, dx)
+
+
+def quantity(value, ci95, unit, **extra):
+    """One result for the JSON output."""
+    d = {"value": value, "ci95": ci95, "unit": unit}
+    d.update(extra)
+    return d
+
+
+def _finite(x):
+    """A JSON-safe copy: numpy scalars as Python numbers, a non-finite number as null."""
+    if isinstance(x, dict):
+        return {k: _finite(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_finite(v) for v in x]
+    if isinstance(x, (bool, np.bool_)):
+        return bool(x)
+    if isinstance(x, (int, np.integer)):
+        return int(x)
+    if isinstance(x, (float, np.floating)):
+        return float(x) if math.isfinite(x) else None
+    return x
+
+
+def emit(args, result, text):
+    """Print a result: the table (or with --json the whole result as JSON) on stdout, every
+    warning on stderr."""
+    if getattr(args, "json", False):
+        print(json.dumps(_finite(result), indent=2, allow_nan=False))
+    else:
+        print(text)
+    for w in result["warnings"]:
+        diag("warning: " + w)
 
 
 def new_figure(nrows=1, ncols=1, size=(8, 6)):
@@ -178,22 +387,32 @@ def save_figure(fig, path):
 
 
 def write_fragment(path, section, values):
-    """Write {section: values} as JSON. An existing file that holds a JSON object keeps its
-    other sections and the section's other fields (so the three identifiers can fill one
-    fragment, or update a scenario in place); anything else is refused, not overwritten."""
-    doc = {}
-    if os.path.exists(path):
-        try:
-            with open(path) as f:
-                doc = json.load(f)
-        except (OSError, ValueError) as e:
-            raise UserError("%s: exists and is not readable JSON (%s); not overwritten" % (path, e))
-        if not isinstance(doc, dict):
-            raise UserError("%s: exists and is not a JSON object; not overwritten" % path)
-    old = doc.get(section)
-    doc[section] = dict(old, **values) if isinstance(old, dict) else values
-    try:
-        write_json(path, doc)
-    except OSError as e:
-        raise UserError("%s: cannot write (%s)" % (path, e.strerror or e))
-    diag("wrote section '%s' of %s" % (section, path))
+    """Merge {section: values} into a scenario or fragment file after validating the merged
+    scenario (host_sim/identify/site.py); print each field changed, old -> new, and any
+    warning about the site on stderr. Returns what was written (for the JSON output)."""
+    from host_sim.identify import site
+    written = site.write_section(path, section, values)
+    for line in site.describe(written):
+        diag(line)
+    return written
+
+
+def write_result(args, result, section, values):
+    """--write: merge the section, record what changed and any site warning in the result (the
+    warnings then print with the others)."""
+    written = write_fragment(args.write, section, values)
+    result["written"] = written
+    result["warnings"] += written["warnings"]
+
+
+def calibration_from(args):
+    """The Calibration of the command line's --gain-tol-pct, --offset-v, --offset-a."""
+    g = getattr(args, "gain_tol_pct", DEFAULT_GAIN_TOL_PCT)
+    ov, oa = getattr(args, "offset_v", 0.0), getattr(args, "offset_a", 0.0)
+    if not 0 <= g <= 10:
+        raise UserError("--gain-tol-pct = %g: allowed 0 to 10 %%" % g)
+    if not 0 <= ov <= 10:
+        raise UserError("--offset-v = %g: allowed 0 to 10 V" % ov)
+    if not 0 <= oa <= 10:
+        raise UserError("--offset-a = %g: allowed 0 to 10 A" % oa)
+    return Calibration(g, ov, oa)

@@ -1,15 +1,18 @@
 # Permanent-magnet DC machine from open-circuit and loaded runs, as a generator:
-#   V_term = K_e w - R_a I - V_b sgn(I)    (E = K_e w; check-values.md, machine section)
+#   V_term = K_e w - R_a I - V_b sgn(I)    (E = K_e w; any electric machines text)
 # w in rad/s from rpm; I > 0 while the machine delivers current; V_b is the brush (or series
-# diode) drop, present only while current flows. Ordinary least squares; 95 % intervals from the
-# residual variance and the covariance matrix. The data decide which parameters can be told apart.
+# diode) drop, present only while current flows. Least squares with a heteroscedasticity-robust
+# (HC3) covariance; the meter's calibration tolerance joins the intervals. The data decide which
+# parameters can be told apart.
 import math
 
 import numpy as np
 
 from host_sim.errors import UserError
-from host_sim.identify.common import (diag, linfit, new_figure, pm, read_log, save_figure,
-                                      t975, table, write_fragment)
+from host_sim.identify.common import (calibration_from, calibration_u, check_clipping,
+                                      check_magnitude, check_rows, combine, diag, emit, linfit,
+                                      new_figure, pm, quantity, read_log, resolution,
+                                      save_figure, t975, table, write_result)
 
 RAD_S_PER_RPM = 2 * math.pi / 60
 COLUMNS = ("rpm", "v_term", "i_a")
@@ -19,13 +22,23 @@ _ONE_SPEED = 0.05  # speeds within 5 % of the top speed count as one speed
 _ONE_CURRENT = 0.10  # loaded currents within 10 % of the largest count as one current
 _ILL = 1e3  # condition number of the column-scaled design above which the fit is fragile
 NAMES = {"ke": "K_e", "ra": "R_a", "vb": "V_brush"}
+_STRUCT_T = 3.0  # |t| of an extra term above which the residuals are called structured
+_WANT_ROWS = 12  # rows below which the log is called short
+METHOD = ("least squares on V_term = K_e w - R_a I - V_b sgn(I) (numpy lstsq); covariance HC3 "
+          "(heteroscedasticity-consistent, MacKinnon & White 1985), 95 % intervals Student t "
+          "on n - p degrees of freedom plus the meter's calibration tolerance")
+SOURCE = ("E = K_e w, V_term = E - I R_a: any electric machines text (e.g. Fitzgerald & "
+          "Kingsley, Electric Machinery, the DC machine chapter); HC3: J. G. MacKinnon and H. "
+          "White, J. Econometrics 29 (1985) 305-325; calibration: GUM JCGM 100:2008 4.3.7")
 
 
 class MachineFit:
     def __init__(self):
         self.params = []  # fitted parameter keys, in column order: "ke", "ra", "vb"
         self.value = {}  # key -> estimate (V s/rad, ohm, V)
-        self.ci95 = {}  # key -> half-width of the 95 % interval, same unit
+        self.ci95 = {}  # key -> half-width of the 95 % interval (noise and calibration)
+        self.ci95_noise = {}  # key -> the noise part of it alone
+        self.u_cal = {}  # key -> standard uncertainty from the meter's calibration
         self.rms_v = 0.0  # residual RMS, V
         self.n = 0  # rows used
         self.dof = 0  # residual degrees of freedom
@@ -46,9 +59,17 @@ def _design(omega, i_a, loaded):
     return {"ke": omega, "ra": -i_a, "vb": -np.sign(i_a) * loaded}
 
 
-def fit_machine(rpm, v_term, i_a, brush="auto", open_below_a=0.005):
+def _fit(omega, v_term, i_a, loaded, params, floor_var):
+    cols = _design(omega, i_a, loaded)
+    return linfit(np.column_stack([cols[k] for k in params]), v_term, robust=True,
+                  floor_var=floor_var)
+
+
+def fit_machine(rpm, v_term, i_a, brush="auto", open_below_a=0.005, cal=None):
     """Fit K_e, R_a and (brush: 'auto' if the data support it, 'fit' always when separable,
-    'none' never) the brush drop. Rows with |i_a| below open_below_a count as open circuit."""
+    'none' never) the brush drop. Rows with |i_a| below open_below_a count as open circuit.
+    Least squares with the HC3 covariance (meter and tachometer noise grow with the reading, so
+    the rows do not share one variance); cal: a common.Calibration added to the intervals."""
     rpm, v_term, i_a = (np.asarray(x, dtype=float) for x in (rpm, v_term, i_a))
     omega = rpm * RAD_S_PER_RPM
     loaded = np.abs(i_a) >= open_below_a
@@ -90,17 +111,18 @@ def fit_machine(rpm, v_term, i_a, brush="auto", open_below_a=0.005):
         warn("all rows at one speed (about %.0f rpm): K_e rests on a single speed, so an offset "
              "in the voltage reading cannot be told from K_e; log open-circuit runs at several "
              "speeds" % np.mean(np.abs(rpm)))
-    cols = _design(omega, i_a, loaded)
     if len(rpm) - len(params) < 2:
         raise UserError("%d rows for %d parameters; need at least %d"
                         % (len(rpm), len(params), len(params) + 2))
-    beta, cov, resid, dof = linfit(np.column_stack([cols[k] for k in params]), v_term)
+    floor = resolution(v_term) ** 2 / 12
+    beta, cov, resid, dof = _fit(omega, v_term, i_a, loaded, params, floor)
     if brush == "auto" and "vb" in params:
         half = t975(dof) * math.sqrt(cov[2, 2])
         if beta[2] <= half:  # interval reaches zero (or below): the data do not support a drop
             params.remove("vb")
             fit.omitted["vb"] = "not supported by the data (%.3g +/- %.2g V)" % (beta[2], half)
-            beta, cov, resid, dof = linfit(np.column_stack([cols[k] for k in params]), v_term)
+            beta, cov, resid, dof = _fit(omega, v_term, i_a, loaded, params, floor)
+    cols = _design(omega, i_a, loaded)
     X = np.column_stack([cols[k] for k in params])
     scaled = X / np.linalg.norm(X, axis=0)
     sv, vt = np.linalg.svd(scaled, full_matrices=False)[1:]
@@ -109,20 +131,59 @@ def fit_machine(rpm, v_term, i_a, brush="auto", open_below_a=0.005):
         warn("the data barely separate %s and %s (condition number %.0f): their intervals are "
              "wide and strongly correlated" % (NAMES[params[worst[0]]], NAMES[params[worst[1]]],
                                                sv[0] / sv[-1]))
+    fit.warnings += _structure(X, v_term, omega, i_a, loaded, params, floor)
     t = t975(dof)
+    if cal is not None:
+        def refit(d):
+            b = _fit(d["rpm"] * RAD_S_PER_RPM, d["v_term"], d["i_a"], loaded, params, floor)[0]
+            return dict(zip(params, (float(x) for x in b)))
+        fit.u_cal = calibration_u(refit, {"rpm": rpm, "v_term": v_term, "i_a": i_a},
+                                  {"rpm": "rpm", "v_term": "V", "i_a": "A"}, cal)
     for j, k in enumerate(params):
         fit.value[k] = float(beta[j])
-        fit.ci95[k] = float(t * math.sqrt(cov[j, j]))
+        fit.ci95_noise[k] = float(t * math.sqrt(cov[j, j]))
+        fit.ci95[k] = combine(fit.ci95_noise[k], fit.u_cal.get(k, 0.0))
     fit.params = params
     if fit.value["ke"] < 0:
         warn("K_e is negative: the terminal polarity is reversed with respect to the rpm sign")
     if fit.value.get("ra", 0.0) < 0:
         warn("R_a came out negative: check the sign of i_a (+ while the machine delivers)")
+    fit.warnings += check_rows(len(rpm), _WANT_ROWS, "in the log")
     fit.resid_v = resid
     fit.rms_v = float(math.sqrt(np.mean(resid ** 2)))
     fit.n = len(rpm)
     fit.dof = dof
     return fit
+
+
+def _structure(X, v_term, omega, i_a, loaded, params, floor):
+    """Model-mismatch checks: refit with one extra term the model does not have and warn when
+    its HC3 t statistic passes 3. A drop that grows less than linearly with current (a brush
+    drop that saturates) or heating shows as I|I| on loaded rows; a speed-dependent EMF (iron
+    loss, a mis-scaled tachometer at one end) as w|w|."""
+    out = []
+    i_max = float(np.max(np.abs(i_a))) or 1.0
+    extra = [("I|I|", -i_a * np.abs(i_a) * loaded,
+              "the terminal voltage falls faster than linearly with current: heating of the "
+              "winding, or a drop that grows with current; R_a is then an average over the "
+              "logged currents"),
+             ("log(1 + 5 I/I_max)", -np.sign(i_a) * np.log1p(5 * np.abs(i_a) / i_max) * loaded,
+              "the drop levels off with current (a brush contact drop that saturates): R_a "
+              "and the drop are then an average over the logged currents and biased"),
+             ("w|w|", omega * np.abs(omega),
+              "the open-circuit voltage is not proportional to speed: check the tachometer, or "
+              "a rectifier in the voltage lead")]
+    for name, col, why in extra:
+        if name != "w|w|" and ("ra" not in params or len(np.unique(np.round(i_a[loaded], 6))) < 3):
+            continue
+        Xa = np.column_stack([X, col])
+        if len(v_term) - Xa.shape[1] < 3 or np.linalg.matrix_rank(Xa) < Xa.shape[1]:
+            continue
+        b, c = linfit(Xa, v_term, robust=True, floor_var=floor)[:2]
+        z = b[-1] / math.sqrt(c[-1, -1]) if c[-1, -1] > 0 else 0.0
+        if abs(z) > _STRUCT_T:
+            out.append("model mismatch: the residuals follow %s (t = %.1f): %s" % (name, z, why))
+    return out
 
 
 def report(fit):
@@ -163,25 +224,51 @@ def plot(fit, rpm, v_term, i_a, path, open_below_a=0.005):
     save_figure(fig, path)
 
 
+def to_json(fit, log_path, cal):
+    vals = {"ke_v_s_per_rad": quantity(fit.value["ke"], fit.ci95["ke"], "V s/rad"),
+            "ke_v_per_krpm": quantity(fit.value["ke"] * 1000 * RAD_S_PER_RPM,
+                                      fit.ci95["ke"] * 1000 * RAD_S_PER_RPM, "V/krpm")}
+    for k, key, unit in (("ra", "ra_ohm", "ohm"), ("vb", "v_brush_v", "V")):
+        if k in fit.value:
+            vals[key] = quantity(fit.value[k], fit.ci95[k], unit,
+                                 ci95_noise=fit.ci95_noise[k])
+        else:
+            vals[key] = {"value": None, "why": fit.omitted.get(k, "not fitted")}
+    vals["ke_v_s_per_rad"]["ci95_noise"] = fit.ci95_noise["ke"]
+    return {"part": "machine", "log": str(log_path), "values": vals,
+            "residual_rms_v": fit.rms_v, "rows": fit.n, "dof": fit.dof, "method": METHOD,
+            "source": SOURCE, "calibration": cal.to_json(), "warnings": list(fit.warnings)}
+
+
+def check_units(log):
+    """Refuse logs whose magnitudes no machine this tool models shows (a log in mV or mA)."""
+    check_magnitude(log, "v_term", None, 1000.0, "V", "is the column in mV? give volts")
+    check_magnitude(log, "i_a", None, 1000.0, "A", "is the column in mA? give amps")
+    check_magnitude(log, "rpm", None, 100000.0, "rpm", "give shaft revolutions per minute")
+
+
 def run(args):
     if not 0 <= args.open_below <= 100:
         raise UserError("--open-below = %g: allowed 0 to 100 A" % args.open_below)
     log = read_log(args.log, COLUMNS, UNITS, optional=("t_s",), min_rows=3, time_col="t_s",
                    what="identify machine")
+    check_units(log)
     c = log.col
+    cal = calibration_from(args)
     try:
         fit = fit_machine(c["rpm"], c["v_term"], c["i_a"], brush=args.brush,
-                          open_below_a=args.open_below)
+                          open_below_a=args.open_below, cal=cal)
     except UserError as e:
         raise UserError("%s: %s" % (log.path, e))
-    print(report(fit))
-    for w in fit.warnings:
-        diag("warning: " + w)
+    # rpm is left out: rows at one speed setting may read the same by design
+    fit.warnings[:0] = check_clipping(log, ("v_term", "i_a"))
+    result = to_json(fit, log.path, cal)
     if args.plot:
         plot(fit, c["rpm"], c["v_term"], c["i_a"], args.plot, args.open_below)
     if args.write:
         if "vb" in fit.value:
             diag("note: the scenario has no brush-drop field; V_brush = %.3g V is not written"
                  % fit.value["vb"])
-        write_fragment(args.write, "machine", fit.fragment())
+        write_result(args, result, "machine", fit.fragment())
+    emit(args, result, report(fit) + "\nmethod: " + METHOD + ".\nsource: " + SOURCE + ".")
     return 0

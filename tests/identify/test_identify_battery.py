@@ -1,6 +1,7 @@
 """identify battery: ohmic jump, one polarisation time constant and state of charge from logs
 the plant battery (host_sim/plant/battery.py) writes with noise; the BCI open-circuit table
-(check-values.md: flooded 12 V block, rested, 26.7 C); the fragment feeds the plant back."""
+(Battery Council International: flooded 12 V block, rested, 26.7 C); the fragment feeds the
+plant back."""
 import json
 
 import numpy as np
@@ -11,6 +12,10 @@ from host_sim.errors import UserError
 from host_sim.identify import benchgen
 from host_sim.identify.battery import identify, soc_from_ocv
 from host_sim.identify.common import read_log
+
+
+# a 12 Ah block at 60 % (the demo block of benchgen is the hut's 100 Ah one)
+SMALL = dict(benchgen.BATTERY, capacity_ah=12.0, soc0=0.6)
 
 
 def to_log(tmp_path, name, t, v, i):
@@ -26,7 +31,7 @@ def load(p):
 @pytest.mark.parametrize("ocv_v, soc", [(12.65, 100), (12.45, 75), (12.24, 50), (12.06, 25),
                                         (11.89, 0), (12.345, 62.5), (12.15, 37.5)])
 def test_bci_table_and_interpolation(ocv_v, soc):
-    # check-values.md, open-circuit voltage vs state of charge (BCI table, flooded, 26.7 C):
+    # open-circuit voltage vs state of charge (BCI table, flooded, 26.7 C):
     # the table points exactly, and straight-line interpolation halfway between two of them
     assert soc_from_ocv(ocv_v)[0] == pytest.approx(soc, abs=1e-9)
 
@@ -58,7 +63,7 @@ def test_relaxation_after_discharge(tmp_path):
     # discharge, then the current stops: the relaxation gives R_p and tau, its end value the
     # open-circuit voltage for the state of charge at the end
     rng = np.random.default_rng(32)
-    b, truth, t, v, i = benchgen.battery_log(rng, steps=((0.0, -3.0), (300.0, 0.0)),
+    b, truth, t, v, i = benchgen.battery_log(rng, SMALL, steps=((0.0, -3.0), (299.75, 0.0)),
                                              end_s=600.0)
     fit = identify(load(to_log(tmp_path, "relax.csv", t, v, i)))
     assert fit.i_post_a == pytest.approx(0.0, abs=0.01) and not fit.drift
@@ -89,15 +94,15 @@ def test_no_step_and_too_few_rows(tmp_path):
 
 
 def test_fragment_feeds_the_plant_back(spinrail, tmp_path):
-    # the demo block (benchgen.BATTERY: r0 250 mohm Ah, rp_dis 2.0 ohm Ah, cp 15 F/Ah, 60 %)
+    # the demo block (benchgen.BATTERY: r0 250 mohm Ah, rp_dis 2.0 ohm Ah, cp 15 F/Ah, 35 %)
     # logged by the plant, identified, and written in the scenario's field names: the values
     # come back as the plant's own base values
     rng = np.random.default_rng(34)
     _, _, t, v, i = benchgen.battery_log(rng)
     p = to_log(tmp_path, "b.csv", t, v, i)
     frag, png = tmp_path / "site.json", tmp_path / "b.png"
-    rc, out, err = spinrail("identify", "battery", p, "--capacity-ah", 12, "--write", frag,
-                            "--plot", png)
+    rc, out, err = spinrail("identify", "battery", p, "--capacity-ah",
+                            benchgen.BATTERY["capacity_ah"], "--write", frag, "--plot", png)
     assert rc == 0, err
     assert "R_0" in out and "state of charge" in out and "BCI" in out
     assert png.read_bytes()[:4] == b"\x89PNG"
@@ -127,5 +132,6 @@ def test_fragment_is_a_valid_scenario_section(spinrail, tmp_path):
         assert rc == 0, err
     sc = scenario.load_doc(json.loads(frag.read_text()))
     assert sc.doc["battery"]["capacity_ah"] == 12.0
-    assert sc.doc["machine"]["ke_v_per_krpm"] == pytest.approx(12.0, rel=0.01)
+    assert sc.doc["machine"]["ke_v_per_krpm"] == pytest.approx(
+        benchgen.MACHINE["ke_v_per_krpm"], rel=0.01)
     assert sc.doc["supercap"]["cells"] == 6
