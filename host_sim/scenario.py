@@ -100,8 +100,8 @@ _HUMAN = {
     "inertia_kg_m2": N(2.5, 1e-4, 1000, "kg m^2", "inertia on the drive shaft: crank, wheel, "
                        "flywheel, limbs"),
     "start_s": N(0, 0, T_MAX, "s", "the person starts turning at this time"),
-    "start_ramp_s": N(1.0, 0.05, 60, "s", "after each start or rest the torque limit ramps up "
-                      "over this long"),
+    "start_ramp_s": N(1.0, 0.005, 60, "s", "torque rise time: after each start or rest the "
+                      "torque limit ramps up over this long (down to one 5 ms control period)"),
     "stop_s": N(None, 0, T_MAX, "s", "the person stops for good at this time (null: never)",
                 nullable=True),
     "pauses": SPANS("[start_s, end_s] spans with no torque (rest); fatigue recovers"),
