@@ -211,6 +211,8 @@ _CHANNEL = {
     "noise_lsb": N(0.7, 0, 1000, "LSB", "gaussian noise, rms"),
     "offset_lsb": N(0, -1000, 1000, "LSB", "fixed offset"),
     "gain_tol_pct": N(0.5, 0, 20, "%", "divider/shunt gain error drawn per seed within +/-"),
+    "gain_err_pct": N(None, -20, 20, "%", "a fixed gain error in place of the drawn one, e.g. "
+                      "at an edge of gain_tol_pct (null: drawn)", nullable=True),
     "present": B(True, "false: the board has no such sensor (reads 0)"),
 }
 SENSOR_CHANNELS = ("bus_v", "src_a", "batt_v", "batt_a", "cap_v", "cap_a", "usb_vbus", "usb_dp",
