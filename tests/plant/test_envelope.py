@@ -140,3 +140,56 @@ def test_the_rise_bound_separates_the_periods_that_hold_from_those_that_cannot()
     r = envelope.scenario_rise(sc)
     assert not r["inside"] and r["rise_v"] > 2.0 * r["room_v"]
     assert not runner.run(sc, progress=False).limits["bus"].held
+
+
+# ---- the generator draws inside the envelope ------------------------------------------------
+def test_generated_examples_stay_inside_the_derived_envelope():
+    """Invariant over 200 examples of `spinrail fuzz` (seed 3, every built-in base): the
+    battery block matches its profile (cells, chemistry, capacity); a person's best power is
+    within 90 % of what the full dump holds, their torque within the rise bound for the
+    example's own period; a wind's three-sigma peak plus gusts within 90 % of the wind the
+    dump holds. And the widened draws happen: 3-, 6- and 12-cell blocks, full batteries, rise
+    times of a few periods, USB converter resistance of 0.1 ohm or more, gains at an edge."""
+    from host_sim import scenario_gen as G
+    bases = [G.load_base(n) for n in ("demo", "crank_relief", "hut_wind", "fault_parade")]
+    seen = {"cells": set(), "soc1": 0, "fast": 0, "usb_r": 0, "edge": 0}
+    for i in range(200):
+        doc, bi = G.generate(bases, 3, i, 300.0)
+        sc = load_doc(doc, bases[bi]["src"])
+        b, p, d = sc.doc["battery"], sc.profile, sc.doc["drive"]
+        assert (b["cells"], b["chemistry"]) == (p.cells, p.chemistry), i
+        assert round(b["capacity_ah"] * 1000) == p.capacity_mah, i
+        trip_v = sc.profile_doc["bus"].get("ovp_trip_v", 24) if "bus" in sc.profile_doc else 24
+        if d["kind"] in envelope.HUMAN_DRIVES:
+            hold_w, _ = envelope.dump_hold(trip_v, sc.doc)
+            assert d["effort"] * d["power_start_w"] <= envelope.MARGIN * hold_w + 1e-9, i
+            assert envelope.scenario_rise(sc)["inside"], i
+            seen["fast"] += d["start_ramp_s"] <= 3 * p.period_ms / 1000.0
+        elif d["kind"] == "wind":
+            v_hold = envelope.wind_hold(trip_v, sc.doc)
+            peak = (d["wind_mean_ms"] * (1 + envelope.TURB_SIGMAS * d["turbulence_pct"] / 100.0)
+                    + envelope.gust_peak_ms(d["gusts"]))
+            assert peak <= envelope.MARGIN * v_hold + 0.01, i  # (the mean is rounded to 0.01)
+        seen["cells"].add(b["cells"])
+        seen["soc1"] += b["soc0"] == 1.0
+        seen["usb_r"] += sc.doc["usb"]["converter"]["r_out_ohm"] >= 0.1
+        seen["edge"] += sum(abs(abs(sc.doc["sensors"][ch]["gain_err_pct"] or 0) - 0.5) < 1e-12
+                            for ch in G.TOL_CHANNELS)
+    assert seen["cells"] == {3, 6, 12}
+    assert min(seen["soc1"], seen["fast"], seen["usb_r"], seen["edge"]) > 5, seen
+
+
+@pytest.mark.parametrize("base", ["demo", "crank_relief", "hut_wind"])
+@pytest.mark.parametrize("cells", [3, 6, 12])
+@pytest.mark.parametrize("chem", ["flooded", "agm", "gel"])
+def test_a_block_profile_is_a_valid_profile_for_its_block(base, cells, chem):
+    from controller import profile
+    from host_sim.scenario_gen import block_profile
+    sc = load_scenario(base)
+    prof, k = block_profile(sc.profile_doc, cells, chem, 0.6 * sc.doc["battery"]["capacity_ah"])
+    p = profile.from_dict(prof)  # the controller's own checks across the sections pass
+    assert (p.cells, p.chemistry) == (cells, chem)
+    assert p.chg_limit_ma <= 0.4 * p.capacity_mah and p.tail_ma < p.chg_limit_ma
+    assert k == (2 if cells == 12 else 1)
+    top_v = cells * max(p.abs_cell_mv, p.eq_cell_mv) / 1000.0
+    assert top_v < p.ovp_recover_mv / 1000.0  # the block charges below the soft zone
