@@ -16,7 +16,7 @@ from controller.supervisor import Supervisor
 from host_sim import distrib
 from host_sim.limitcheck import LimitChecker
 from host_sim.plant.batch import BatchPlant
-from host_sim.runner import CLOCK_START_MS, COLUMN_NAMES, RunResult, _row, bus_limit_v
+from host_sim.runner import CLOCK_START_MS, COLUMN_NAMES, RunResult, _row
 
 
 def _scenario(x, duration_s):
@@ -48,8 +48,7 @@ def run_local(scenarios, every=None):
     per_ms = [sc.profile.period_ms for sc in scenarios]
     dts = [ms / 1000.0 for ms in per_ms]
     n_per = [int(round(sc.duration_s * 1000.0 / ms)) for sc, ms in zip(scenarios, per_ms)]
-    checkers = [LimitChecker(sc.profile, dt, bus_limit_v(sc, sc.profile))
-                for sc, dt in zip(scenarios, dts)]
+    checkers = [LimitChecker.for_scenario(sc) for sc in scenarios]  # from the profile document
     plants = bp.plants
     snaps = [p.snapshot() for p in plants]
     rows = [[] for _ in range(n)]
@@ -76,7 +75,7 @@ def run_local(scenarios, every=None):
             snaps[i] = s
             checkers[i].check((k + 1) * dts[i], s, c, c.stage)
             if every is not None and k % every == 0:
-                rows[i].append(_row(s, c, scenarios[i].profile))
+                rows[i].append(_row(s, c, checkers[i].doc))
             now[i] = (now[i] + per_ms[i]) & TICKS_MASK
     wall = time.perf_counter() - t0
     total = max(1, sum(n_per))

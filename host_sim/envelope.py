@@ -111,3 +111,75 @@ def wind_mean_max(v_hold_ms, turbulence_pct, gust_ms):
     """The strongest mean wind whose three-sigma turbulence peak plus gusts stays within
     MARGIN x the wind the dump holds."""
     return (MARGIN * v_hold_ms - gust_ms) / (1.0 + TURB_SIGMAS * turbulence_pct / 100.0)
+
+
+# ---- How fast a person's torque may build: the one-period reaction delay --------------------
+# The bound above is a steady state. A person who starts turning (or starts again after a
+# rest) spins the rotor up, and once the bridge conducts the bus follows the EMF (its RC with
+# the armature, R_a C_bus, is a fraction of a millisecond). The controller sees the bus once
+# per period and answers at the next tick, so between two ticks nothing but the commands of
+# the last tick load the generator. Where no dump is on, at or below the soft zone's bottom
+# (the profile's ovp_recover_v: below it the bus may sit, unloaded by the dump, for as long as
+# it likes), the bus can rise for one whole period before the controller sees it rise:
+#   J dw/dt <= T_person(w) eta_gear / ratio          (Newton, on the machine shaft; friction and
+#                                                    every load left out, so it is an upper bound)
+#   dV/dt <= dE/dt = K_e dw/dt                       (the bus under the EMF while it conducts)
+#   dV in one period T <= K_e T_m T / J,   T_m = eta / ratio x min(torque_max, P / max(v, 0.3 v_c))
+# with the person's torque at the lowest crank speed v where the bus can be at the soft zone's
+# bottom (v = V_recover / (K_e ratio)): the plant's person (drive.py Human) gives at most their
+# torque limit, and above 0.3 x cadence v_c at most their power P over the speed, which only
+# falls as the rotor speeds up. Their torque also ends at 1.15 x cadence (the plant's taper),
+# so the EMF never exceeds E_max = K_e x 1.15 v_c ratio, and the bus never exceeds it either.
+# After that one period the controller sees the rise: the soft zone reads the bus where twice
+# the last rise would take it, so with a rise no steeper than the first the full dump is on
+# before the bus reaches the trip, and from there the steady bound above holds the bus (the
+# rotor is first order: it settles on the dump's line without overshoot). So a once-per-period
+# controller holds the bus under the limit when
+#   E_max <= V_lim,   or   V_recover + K_e T_m T / J <= V_recover + MARGIN (V_lim - V_recover).
+# The bound is for a torque that steps up at once: it holds for every rise time
+# (drive.start_ramp_s), down to the plant's shortest. A slower build only helps after a rest
+# long enough to stop the rotor, which the bound does not count on. Outside it a controller
+# acting once per period cannot hold the bus with the dump alone: that needs a shorter period,
+# a larger bus capacitor, or a hardware clamp that answers within the period.
+CADENCE_TAPER = 1.15  # drive.py Human: torque falls to zero at 1.15 x cadence
+LOW_SPEED = 0.3  # drive.py Human: below 0.3 x cadence the person's torque is P / (0.3 v_c)
+
+
+def rise_hold(trip_v, recover_v, period_s, doc, best_w):
+    """The one-period rise a person can give the bus (a dict): e_max_v (highest EMF the person
+    reaches), slew_v_s (steepest bus rise at the soft zone's bottom), rise_v (one period of it),
+    room_v (MARGIN x (limit - recovery)), inside (the bus is held whatever the rise time) and
+    torque_cap_nm (the largest drive.torque_max_nm that stays inside; inf if the EMF alone
+    keeps it). trip_v, recover_v: the profile's overvoltage trip and recovery, V; period_s: the
+    control period; doc: a resolved scenario document (bus, machine, gear, drive); best_w: the
+    person's best power (effort x power_start_w), W."""
+    mach = Machine.from_doc(doc["machine"])
+    g, d = doc["gear"], doc["drive"]
+    ratio, eta = g["ratio"], g["efficiency"]
+    j = mach.j + d["inertia_kg_m2"] / ratio ** 2  # at the machine, as the plant has it
+    v_lim = trip_v + doc["bus"]["clamp_margin_v"]
+    w_c = d["cadence_rpm"] * 2.0 * math.pi / 60.0  # cadence, rad/s at the crank
+    e_max = mach.k * CADENCE_TAPER * w_c * ratio
+    v_low = max(recover_v / (mach.k * ratio), LOW_SPEED * w_c)  # crank speed, rad/s
+    t_power = best_w / v_low  # the torque the person's power allows there, N m at the crank
+    t_crank = min(d["torque_max_nm"], t_power)
+    slew = mach.k * t_crank * eta / ratio / j
+    room = MARGIN * (v_lim - recover_v)
+    if e_max <= v_lim:
+        cap = math.inf
+    elif t_power * eta / ratio * mach.k / j * period_s <= room:
+        cap = math.inf  # the person's power alone keeps the rise inside
+    else:
+        cap = room * j * ratio / (mach.k * eta * period_s)
+    rise = slew * period_s
+    return {"e_max_v": e_max, "slew_v_s": slew, "rise_v": rise, "room_v": room,
+            "inside": e_max <= v_lim or rise <= room, "torque_cap_nm": cap}
+
+
+def scenario_rise(sc):
+    """rise_hold for a loaded scenario with a human drive."""
+    p = sc.profile_doc.get("bus", {})
+    d = sc.doc["drive"]
+    return rise_hold(p.get("ovp_trip_v", 24), p.get("ovp_recover_v", 21),
+                     sc.profile_doc.get("control", {}).get("period_ms", 50) / 1000.0, sc.doc,
+                     d["effort"] * d["power_start_w"])

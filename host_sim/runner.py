@@ -112,7 +112,7 @@ def run(sc, progress=True, every=1, controller=None):
     period_ms = p.period_ms
     dt_s = period_ms / 1000.0
     n = int(round(sc.duration_s * 1000.0 / period_ms))
-    checker = LimitChecker(p, dt_s, bus_limit_v(sc, p))
+    checker = LimitChecker.for_scenario(sc)  # judged from the profile document, not from p
     meter = ServiceMeter(sc, plant, dt_s)
     rows = []
     prog = Progress("simulate %s" % sc.name, n, progress)
@@ -130,7 +130,7 @@ def run(sc, progress=True, every=1, controller=None):
         checker.check(t_s, s, c, c.stage)
         meter.period(t_s, s, c)
         if k % every == 0:
-            rows.append(_row(s, c, p, meter.p_best))
+            rows.append(_row(s, c, checker.doc, meter.p_best))
         now_ms = (now_ms + period_ms) & TICKS_MASK
         if (k & 255) == 0:
             prog.update(k)
@@ -144,17 +144,10 @@ def run(sc, progress=True, every=1, controller=None):
     return RunResult(sc, series, limits, led, n, wall, service)
 
 
-def bus_limit_v(sc, p):
-    """Bus limit for the closed-loop check: the trip plus the surge clamp's margin."""
-    margin = getattr(sc, "clamp_margin_v", None)
-    if margin is None:
-        margin = sc.doc.get("bus", {}).get("clamp_margin_v", 4.0)
-    return p.ovp_trip_mv / 1000.0 + float(margin)
-
-
-def _row(s, c, p, p_best=math.nan):
+def _row(s, c, lims, p_best=math.nan):
+    """lims: the checker's limits of the profile document (limitcheck.DocLimits)."""
     stage = c.stage
-    ceil = ceiling_v(p, stage, s["batt_temp_c"]) if stage != ST_BLOCKED else math.nan
+    ceil = ceiling_v(lims, stage, s["batt_temp_c"]) if stage != ST_BLOCKED else math.nan
     return (s["t_s"], s["drive_rpm"], s["machine_rpm"], s["p_in_w"], s["p_elec_w"],
             s.get("p_ideal_w", math.nan), p_best, s["bus_v"], s["src_a"], s["batt_v"],
             s["batt_a"], s["batt_temp_c"], s["batt_soc"], stage, ceil, s["cap_v"], s["cap_a"],

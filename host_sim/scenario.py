@@ -109,8 +109,8 @@ _HUMAN = {
     "inertia_kg_m2": N(2.5, 1e-4, 1000, "kg m^2", "inertia on the drive shaft: crank, wheel, "
                        "flywheel, limbs"),
     "start_s": N(0, 0, T_MAX, "s", "the person starts turning at this time"),
-    "start_ramp_s": N(1.0, 0.05, 60, "s", "after each start or rest the torque limit ramps up "
-                      "over this long"),
+    "start_ramp_s": N(1.0, 0.005, 60, "s", "torque rise time: after each start or rest the "
+                      "torque limit ramps up over this long (down to one 5 ms control period)"),
     "stop_s": N(None, 0, T_MAX, "s", "the person stops for good at this time (null: never)",
                 nullable=True),
     "pauses": SPANS("[start_s, end_s] spans with no torque (rest); fatigue recovers"),
@@ -220,6 +220,8 @@ _CHANNEL = {
     "noise_lsb": N(0.7, 0, 1000, "LSB", "gaussian noise, rms"),
     "offset_lsb": N(0, -1000, 1000, "LSB", "fixed offset"),
     "gain_tol_pct": N(0.5, 0, 20, "%", "divider/shunt gain error drawn per seed within +/-"),
+    "gain_err_pct": N(None, -20, 20, "%", "a fixed gain error in place of the drawn one, e.g. "
+                      "at an edge of gain_tol_pct (null: drawn)", nullable=True),
     "present": B(True, "false: the board has no such sensor (reads 0)"),
 }
 SENSOR_CHANNELS = ("bus_v", "src_a", "batt_v", "batt_a", "cap_v", "cap_a", "usb_vbus", "usb_dp",

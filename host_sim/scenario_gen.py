@@ -52,6 +52,18 @@ SURGE_MAX_S = 1.0  # longest bus surge drawn, s
 # (README, known limits). Stiffer surges are a hardware question: an input filter, a lower
 # clamp, or a converter with a cycle-by-cycle current limit.
 SURGE_OHM_MIN = 5.0
+# Battery blocks: 3, 6 and 12 cells (6, 12 and 24 V), each with a profile made to match it
+# (block_profile): cells, capacity, chemistry and the chemistry's documented setpoints and
+# limits; a 24 V block on a 24 V system (bus levels, sensor ranges, supercap string and the
+# machine's EMF constant doubled), as one would build it.
+BLOCK_CELLS = (3, 6, 6, 12)  # the base's 12 V block drawn twice as often
+CHEMS = ("flooded", "agm", "gel")
+SOC0_FULL = 0.15  # share of examples that start on a full battery (SOC 1.0)
+SURPLUS = 0.25  # share of sites whose source gives more than the stores can take
+GAIN_EDGE = 0.3  # share of sensor channels whose gain error sits at an edge of its tolerance
+GAIN_TOL_PCT = 0.5  # the board's stated gain tolerance (the schema default)
+USB_R_OUT_OHM = (0.0, 0.15)  # USB converter output resistance (a 0.1 ohm one crossed VBUS)
+RAMP_HI_S = 2.0  # torque rise times from one control period up to this (log-uniform)
 EFFORT_LO, EFFORT_HI = 0.3, 1.5  # a person's effort against the base's rider (a tired one, a
 # strong one), capped by what the dump load holds (host_sim/envelope.py)
 SPRINT_HI = 1.5  # fresh power up to 1.5 x the base's, under the same cap
@@ -71,7 +83,7 @@ def load_base(name_or_path):
     if isinstance(prof, str) and ("/" in prof or prof.endswith(".json")):
         raw["profile"] = sc.profile_doc
     return {"name": sc.name, "src": src, "raw": raw, "resolved": _jsonable(sc.doc),
-            "facts": facts(sc)}
+            "profile_doc": _jsonable(sc.profile_doc), "facts": facts(sc)}
 
 
 def _jsonable(x):
@@ -104,6 +116,9 @@ def facts(sc):
         "batt_a_stuck": min(1.5 * p.chg_limit_ma, 0.9 * p.batt_fs_ma) / 1000.0,
         "chg_limit_a": p.chg_limit_ma / 1000.0,
         "bus_limit_v": lim_v,
+        "recover_v": p.ovp_recover_mv / 1000.0,
+        "period_s": p.period_ms / 1000.0,
+        "cells": p.cells,
     }
 
 
@@ -229,6 +244,7 @@ class _Gen:
         self.rng = rng
         self.doc = copy.deepcopy(base["raw"])
         self.res = base["resolved"]
+        self.facts = base["facts"]  # this example's (block_step replaces them)
         self.kind = base["facts"]["drive_kind"]
         self.max_duration_s = max_duration_s
 
@@ -277,6 +293,8 @@ def generate(bases, seed, i, max_duration_s=300.0):
     doc["name"] = "fuzz_%s_s%d_i%d" % (base["name"], seed, i)
     doc["description"] = ("spinrail fuzz example %d of seed %d over %s (%s)"
                           % (i, seed, base["name"], doc.get("description", "")))[:2000]
+    g.surplus = g.chance(SURPLUS)
+    _block(g)
     _environment(g)
     _components(g)
     _drive(g, dur)
@@ -285,14 +303,84 @@ def generate(bases, seed, i, max_duration_s=300.0):
     return doc, bi
 
 
+# docs/profile.md: charge limit and tail current per chemistry, in C
+_C_RATE = {"flooded": (0.125, 0.02), "agm": (0.2, 0.02), "gel": (0.05, 0.01)}
+_CHEM_FIELDS = ("absorption_v_per_cell", "float_v_per_cell", "equalize_v_per_cell",
+                "temp_coeff_mv_per_c_per_cell", "charge_limit_a", "tail_current_a")
+# (section, field, default) of the system voltages a 24 V system doubles (docs/profile.md)
+_SYSTEM_V = (("bus", "ovp_trip_v", 24), ("bus", "ovp_recover_v", 21), ("bus", "floor_v", 9.0),
+             ("sensors", "bus_full_scale_v", 40), ("sensors", "batt_full_scale_v", 20),
+             ("sensors", "cap_full_scale_v", 20), ("supercap", "cells", 6))
+
+
+def block_profile(profile_doc, cells, chemistry, capacity_ah):
+    """(profile document, system voltage factor) for a block of `cells` cells of this chemistry
+    and capacity, made from a 12 V system's profile document. The profile's own setpoints stay
+    when the chemistry is its own (else the chemistry's documented defaults apply); the charge
+    limit and tail current keep the profile's C rates (the chemistry's defaults for another
+    chemistry). A 12-cell block gets a 24 V system: the bus levels, the sensor ranges and the
+    supercap string doubled (factor 2; the caller doubles the machine's EMF constant)."""
+    prof = copy.deepcopy(profile_doc)
+    b = prof.setdefault("battery", {})
+    own = b.get("chemistry", "agm")
+    lim_c, tail_c = _C_RATE[chemistry]
+    if own == chemistry:
+        cap0 = b.get("capacity_ah", 7.0)
+        lim_c = b.get("charge_limit_a", _C_RATE[own][0] * cap0) / cap0
+        tail_c = b.get("tail_current_a", _C_RATE[own][1] * cap0) / cap0
+    else:
+        for k in _CHEM_FIELDS:
+            b.pop(k, None)
+    b.update(chemistry=chemistry, cells=cells, capacity_ah=_r(capacity_ah))
+    b["charge_limit_a"] = round(max(0.05, min(lim_c, 0.4) * b["capacity_ah"]), 3)
+    b["tail_current_a"] = round(max(0.001, min(tail_c * b["capacity_ah"],
+                                               0.5 * b["charge_limit_a"])), 4)
+    k = 2 if cells > 6 else 1
+    if k != 1:
+        for sec, key, dflt in _SYSTEM_V:
+            prof.setdefault(sec, {})[key] = prof.get(sec, {}).get(key, dflt) * k
+        ctl = prof.get("control", {})
+        if ctl.get("overspeed_bus_v") is not None:
+            ctl["overspeed_bus_v"] = ctl["overspeed_bus_v"] * k
+    return prof, k
+
+
+def _block(g):
+    """The battery block and the profile that matches it (block_profile); the example's facts
+    and resolved base follow it."""
+    from host_sim.scenario import load_doc
+    cells = g.pick(BLOCK_CELLS)
+    own = g.base["profile_doc"].get("battery", {}).get("chemistry", "agm")
+    chem = own if g.chance(0.5) else g.pick(CHEMS)
+    # a smaller or an aged block (its label, in the profile, says so)
+    cap_ah = get_path(g.res, ["battery", "capacity_ah"]) * g.u(0.5, 1.0)
+    prof, k = block_profile(g.base["profile_doc"], cells, chem, cap_ah)
+    g.doc["profile"] = prof
+    bat = g.doc.setdefault("battery", {})
+    bat.update(cells=cells, chemistry=chem, capacity_ah=prof["battery"]["capacity_ah"])
+    if k != 1:
+        g.doc.setdefault("machine", {})["ke_v_per_krpm"] = _r(
+            get_path(g.res, ["machine", "ke_v_per_krpm"]) * k)
+        if "cells" in g.doc.get("supercap", {}):
+            g.doc["supercap"]["cells"] = prof["supercap"]["cells"]
+    sc = load_doc(g.doc, g.base["src"])
+    g.res = _jsonable(sc.doc)
+    g.facts = dict(g.base["facts"], **facts(sc))
+
+
 def _environment(g):
     amb = g.u(-10.0, 50.0)
     g.put("battery.ambient_c", amb, 1)
     g.put("battery.temp0_c", amb + g.u(-5.0, 5.0), 1)
-    g.put("battery.soc0", g.u(0.05, 0.98))
-    g.scale("battery.capacity_ah", 0.5, 1.0)  # aging: the block holds less than its label
-    g.scale("battery.r0_mohm_ah", 1.0, 2.0)  # ... and its resistance rises
-    g.put("supercap.v0_per_cell", g.u(0.0, 0.98) * g.base["facts"]["cap_v0_max"])
+    if g.chance(SOC0_FULL):
+        g.put("battery.soc0", 1.0)
+    elif g.surplus:  # nearly full stores: the source gives more than they take
+        g.put("battery.soc0", g.u(0.9, 1.0))
+    else:
+        g.put("battery.soc0", g.u(0.05, 1.0))
+    g.scale("battery.r0_mohm_ah", 1.0, 2.0)  # aging: the resistance rises
+    v0 = g.u(0.9, 0.98) if g.surplus else g.u(0.0, 0.98)
+    g.put("supercap.v0_per_cell", v0 * g.facts["cap_v0_max"])
     g.put("rectifier.temp_c", amb + g.u(0.0, 40.0), 1)
 
 
@@ -307,9 +395,14 @@ def _components(g):
     g.put("supercap.cap_spread_pct", g.u(0.0, 3.0), 2)  # 10 % derate: > 3 std for 6 cells
     g.scale("supercap.esr_mohm", 0.7, 2.0)
     g.put("supercap.leak_spread_pct", g.u(0.0, 60.0), 1)
-    # sensor chains: within the board's stated gain tolerance (the schema default, 0.5 %)
+    # sensor chains: within the board's stated gain tolerance (the schema default, 0.5 %),
+    # some at either edge of it
     for ch in TOL_CHANNELS:
-        g.put("sensors.%s.gain_tol_pct" % ch, g.u(0.0, 0.5))
+        if g.chance(GAIN_EDGE):
+            g.put("sensors.%s.gain_tol_pct" % ch, GAIN_TOL_PCT)
+            g.put("sensors.%s.gain_err_pct" % ch, GAIN_TOL_PCT * g.pick((-1.0, 1.0)))
+        else:
+            g.put("sensors.%s.gain_tol_pct" % ch, g.u(0.0, GAIN_TOL_PCT))
         g.put("sensors.%s.noise_lsb" % ch, g.u(0.2, 1.5))
         g.put("sensors.%s.offset_lsb" % ch, g.u(-2.0, 2.0))
     g.put("sensors.batt_temp.offset_c", g.u(-1.0, 1.0))
@@ -319,6 +412,8 @@ def _drive(g, dur):
     k = g.kind
     if k in ("pedal", "crank"):
         effort_at = g.u(0.0, 1.0)  # where in its range the effort falls (drawn here, set below)
+        if g.surplus:
+            effort_at = 1.0  # the strongest rider the dump holds
         g.scale("drive.cadence_rpm", 0.5, 1.4)
         g.scale("drive.torque_max_nm", 0.7, 1.3)
         start = get_path(g.res, ["drive", "power_start_w"]) * g.u(0.6, SPRINT_HI)
@@ -329,11 +424,19 @@ def _drive(g, dur):
         # what the full dump absorbs with the bus at its limit on this example's machine
         # (host_sim/envelope.py; the demo rig holds 219 W, and a 240 W sprint took its bus to
         # 28.55 V against 28 V: README, known limits)
-        hold_w, _ = envelope.dump_hold(g.base["facts"]["trip_v"], g.merged(
+        hold_w, _ = envelope.dump_hold(g.facts["trip_v"], g.merged(
             ("bus", "machine", "rectifier", "gear")))
         hi = min(EFFORT_HI, envelope.effort_max(hold_w, start))
         lo = min(EFFORT_LO, hi)
-        g.put("drive.effort", lo + effort_at * (hi - lo))
+        effort = lo + effort_at * (hi - lo)
+        g.put("drive.effort", math.floor(effort * 1000.0) / 1000.0)  # rounded, never over hi
+        # how fast the torque builds after a start or a rest: from one control period up
+        # (log-uniform), with the person's torque within what a controller acting once per
+        # period holds (envelope.rise_hold: one period of bus rise from the soft zone's
+        # bottom; a stronger crank is capped, or slowed so its EMF stays under the limit)
+        per_s = g.facts["period_s"]
+        g.put("drive.start_ramp_s", math.exp(g.u(math.log(per_s), math.log(RAMP_HI_S))))
+        _rise_cap(g)
         sus = get_path(g.res, ["drive", "power_sustained_w"]) * g.u(0.6, 1.2)
         g.put("drive.power_sustained_w", min(sus, start), 1)
         if g.chance(0.4):  # a new pattern of rests
@@ -359,23 +462,41 @@ def _drive(g, dur):
         # gusts within 90 % of the steady wind the full dump holds with the bus at its limit
         # on this example's machine (host_sim/envelope.py: 20.0 m/s on the hut's mast; a
         # mean of 8.85 m/s at 34 % turbulence took the bus to 30.7 V: README, known limits)
+        if g.surplus:
+            mean_at = 1.0  # the strongest wind the dump holds
         doc = g.merged(("bus", "machine", "rectifier", "gear", "drive"))
-        v_hold = envelope.wind_hold(g.base["facts"]["trip_v"], doc)
+        v_hold = envelope.wind_hold(g.facts["trip_v"], doc)
         hi = min(WIND_MEAN_MS[1], envelope.wind_mean_max(
             v_hold, doc["drive"]["turbulence_pct"], envelope.gust_peak_ms(doc["drive"]["gusts"])))
         lo = min(WIND_MEAN_MS[0], hi)
         g.put("drive.wind_mean_ms", lo + mean_at * (hi - lo), 2)
     elif k == "hydro":
-        g.scale("drive.flow_lps", 0.5, 1.5)
+        g.scale("drive.flow_lps", 0.5, 1.5)  # (no hydro base: the envelope has no hydro bound)
         g.scale("drive.head_m", 0.8, 1.2)
     elif k == "scripted":
         f = g.u(0.8, 1.2)
         g.doc["drive"]["points"] = [[t, _r(v * f)] for t, v in g.res["drive"]["points"]]
 
 
+def _rise_cap(g):
+    f = g.facts
+    d = g.merged(("bus", "machine", "gear", "drive"))
+    best_w = d["drive"]["effort"] * d["drive"]["power_start_w"]
+    r = envelope.rise_hold(f["trip_v"], f["recover_v"], f["period_s"], d, best_w)
+    if r["inside"]:
+        return
+    lo = g.field("drive.torque_max_nm").lo
+    if r["torque_cap_nm"] >= lo:
+        g.put("drive.torque_max_nm", math.floor(r["torque_cap_nm"] * 100.0) / 100.0)
+    else:  # slow the cadence until the EMF at the torque's end stays under the limit
+        scale = 0.98 * (f["trip_v"] + d["bus"]["clamp_margin_v"]) / r["e_max_v"]
+        g.put("drive.cadence_rpm", math.floor(d["drive"]["cadence_rpm"] * scale * 10.0) / 10.0)
+
+
 def _usb(g):
     g.put("usb.network.tol_pct", g.u(0.0, 5.0), 2)
     g.put("usb.converter.setpoint_tol_pct", g.u(0.0, 3.0), 2)
+    g.put("usb.converter.r_out_ohm", g.u(*USB_R_OUT_OHM))
     if g.chance(0.15):  # an assembly fault on the data-line network
         kind = g.pick(NET_FAULTS)
         f = {"kind": kind}
@@ -389,7 +510,7 @@ def _usb(g):
 def _events(g, dur):
     if dur < 3.0:
         return
-    facts = g.base["facts"]
+    facts = g.facts
     evs = []
 
     def later(t, lo, hi):
@@ -407,8 +528,10 @@ def _events(g, dur):
         elif kind == "sensor_stuck":
             ev["sensor"] = g.pick(tuple(STUCK_VALUES))
             ev["value"] = g.pick(STUCK_VALUES[ev["sensor"]])
-            if ev["value"] is None:  # battery current: over the base's own charge limit
+            if ev["value"] is None:  # battery current: over the block's own charge limit
                 ev["value"] = _r(facts["batt_a_stuck"])
+            elif ev["sensor"] == "batt_v" and ev["value"] > 1.0 and facts["cells"] != 6:
+                ev["value"] = _r(15.5 * facts["cells"] / 6.0)  # above this block's ceiling
             undo = {"kind": "sensor_ok", "sensor": ev["sensor"]}
         elif kind == "sensor_open":
             ev["sensor"] = g.pick(OPEN_SENSORS)
@@ -469,7 +592,8 @@ def outside_envelope(ev, facts):
         return True
     if k == "sensor_open" and ev.get("sensor") == "batt_a" and ev.get("reads") == "zero":
         return True
-    if k == "sensor_stuck" and ev.get("sensor") == "batt_v" and 1.0 < ev.get("value", 0) < 14.5:
+    if (k == "sensor_stuck" and ev.get("sensor") == "batt_v"
+            and 1.0 < ev.get("value", 0) < 14.5 * facts.get("cells", 6) / 6.0):
         return True  # the battery voltage frozen inside its ceiling hides the ceiling
     if k == "sensor_open" and ev.get("sensor") == "bus_v" and ev.get("reads") == "zero":
         return True
@@ -566,7 +690,8 @@ class Shrinker:
         field at a time; a number that cannot go all the way back is bisected toward the base
         (three steps), keeping the closest value that still fails."""
         changed = False
-        paths = [p for p in _diff_paths(doc, self.base["raw"]) if p[0] not in _KEEP]
+        paths = [p for p in _diff_paths(doc, self.base["raw"])
+                 if p[0] not in _KEEP and not _block_path(p)]
         if not paths:
             return doc, False
         groups = [paths]
@@ -587,7 +712,7 @@ class Shrinker:
                 doc = cand
                 changed = True
         for parts in _diff_paths(doc, self.base["raw"]):
-            if parts[0] in _KEEP:
+            if parts[0] in _KEEP or _block_path(parts):
                 continue
             cur = get_path(doc, parts)
             cand = copy.deepcopy(doc)
@@ -625,6 +750,13 @@ class Shrinker:
 
 
 _KEEP = ("events", "name", "description", "duration_s", "seed")  # not "perturbed fields"
+
+
+def _block_path(parts):
+    """The battery block and its profile (block_profile) move together or not at all: a field
+    of one put back alone would leave a block on another block's profile."""
+    return parts[0] == "profile" or (parts[0] == "battery" and len(parts) > 1
+                                     and parts[1] in ("cells", "chemistry", "capacity_ah"))
 
 
 def changed_fields(doc, base):

@@ -14,7 +14,7 @@ from controller.signals import (F_BATT_ABSENT, F_BATT_REVERSED, F_BATT_SENSOR, F
                                 F_FIRMWARE, F_LINK, F_OVP, F_OVP_LOCKOUT, F_TEMP_SENSOR,
                                 F_TEMP_WINDOW, FAULT_NAMES, ST_ABSORPTION, ST_BLOCKED, ST_BULK,
                                 ST_EQUALIZE, ST_FLOAT)
-from host_sim.limitcheck import CHARGING_A, ceiling_v
+from host_sim.limitcheck import CHARGING_A, DocLimits, ceiling_v
 from host_sim.plant.drive import Human, Hydro, Scripted, Wind
 from host_sim.plant.machine import RPM_PER_RAD_S
 
@@ -189,6 +189,7 @@ class ServiceMeter:
         p = sc.profile
         self.sc = sc
         self.p = p
+        self.lims = DocLimits(sc.profile_doc)  # ceilings as the limit check judges them
         self.plant = plant
         self.dt = dt_s
         self.best = BestPower(plant)
@@ -301,7 +302,7 @@ class ServiceMeter:
         elif stage == ST_ABSORPTION:
             if ib > CHARGING_A:
                 self.abs_charge_s += dt
-            if ib <= self.tail_a and vb >= ceiling_v(self.p, stage, tb) - self.band_v:
+            if ib <= self.tail_a and vb >= ceiling_v(self.lims, stage, tb) - self.band_v:
                 self.abs_tail_s += dt
         if fault & _TRIP:
             self.t_trip = t_s
@@ -367,7 +368,7 @@ class ServiceMeter:
         # the battery takes up to its limit in bulk only: in absorption and float its voltage
         # sets the current, and the room left below the ceiling is a small taper
         if conn and stage == ST_BULK and ib < ROOM_SHARE * self.lim_a:
-            if vb < ceiling_v(self.p, stage, tb) - self.band_v:
+            if vb < ceiling_v(self.lims, stage, tb) - self.band_v:
                 room += (self.lim_a - ib) * vb * dt / self.eta_b
         if self.cap_on:
             vc = s["cap_v"]

@@ -114,10 +114,11 @@ def print_table(summ, out=sys.stdout):
         print("%-14s %-5s %10.3f %10.3f %9.1f  %s" % (
             name, "yes" if d["held"] else "NO", d["worst"], d["limit"], d["t_worst_s"], d["unit"]),
             file=out)
-    bc = summ["limits"].get("batt_current", {})
-    if bc.get("peak") is not None and bc.get("limit") is not None and bc["peak"] > bc["limit"]:
-        print("batt_current: peak %.3f A at %.1f s, above the band for one period only (the rule "
-              "excepts such transients)" % (bc["peak"], bc["t_peak_s"]), file=out)
+    for name, d in summ["limits"].items():  # the currents whose rule lets one period pass
+        if d.get("peak") is not None and d.get("limit") is not None and d["peak"] > d["limit"]:
+            print("%s: peak %.3f %s at %.1f s, above the band for one period only (the rule "
+                  "excepts such transients)" % (name, d["peak"], d["unit"], d["t_peak_s"]),
+                  file=out)
     sv = summ.get("service")
     if sv:
         print_energy_wh(sv, summ["balance_error_pct"], out)

@@ -46,6 +46,8 @@ class Channel:
         self.lo = -(n >> 1) if bipolar else 0  # counts
         self.hi = (n >> 1) - 1 if bipolar else n - 1
         self.gain = 1.0 + cfg["gain_tol_pct"] / 100.0 * float(rng.uniform(-1.0, 1.0))
+        if cfg.get("gain_err_pct") is not None:  # fixed (the draw above still keeps the stream)
+            self.gain = 1.0 + cfg["gain_err_pct"] / 100.0
         self.offset = cfg["offset_lsb"]
         self.noise = _table(rng.standard_normal(NOISE_N) * cfg["noise_lsb"])
         self.k = 0  # next noise sample
