@@ -273,7 +273,8 @@ class OvpOracle:
 RELEASE_PERIODS = 10  # overvolt.py: after the latch clears the dump steps down over ten periods
 SOFT_RELEASE = DUTY_MAX // 20  # docs/profile.md: the soft zone's dump falls 5 % per period
 OVERSPEED_RAMP_MV = 1000  # docs/profile.md: the overspeed dump goes 0 -> full over 1 V ...
-OVERSPEED_RELEASE = DUTY_MAX // 20  # ... and falls by at most 5 % of full per period
+OVERSPEED_RELEASE = DUTY_MAX // 20  # ... and falls by at most 5 % of full per period;
+OVERSPEED_KI_SHIFT = 2  # once in, it integrates the bus error: err >> 2 duty per period
 
 
 def bus_suspect(t, L):
@@ -289,13 +290,15 @@ def check_i5(ticks, L):
     USB off and both storage duties 0, in that tick; the latch holds until the bus has read
     below recovery for the hold time, then the dump load steps down to off over ten periods;
     lockout_trips trips within the window keep every output off until reset.
-    Between recovery and the trip the dump load comes in in proportion at once (none at
-    recovery, full at the trip; on a rising bus judged where twice the last period's rise
-    would take it) and lets go by at most 5 % of full per period. While the
+    Between recovery and the trip the dump load comes in in proportion at once (on a bus
+    running up, more than 1/64 of itself in a period, none at recovery and full at the trip,
+    judged where twice the last period's rise would take it; on any other bus over the zone's
+    top eighth only) and lets go by at most 5 % of full per period. While the
     controller's cross-check holds the bus reading false, the dump load is fully on (also on a
     tick whose reading is out of range: the latch carries over it). With MPPT and an
     overspeed level the dump load also follows the bus above it (full over 1 V) at once, and
-    lets go by at most 5 % of full per period; while a bus fault or the guard keeps the
+    once in integrates the bus error over overspeed (err >> 2 per period), falling by at most
+    5 % of full per period; while a bus fault or the guard keeps the
     tracker from running, the overspeed dump holds its last duty (docs/profile.md, control)."""
     o = OvpOracle(L)
     prev_abs = None
@@ -327,17 +330,24 @@ def check_i5(ticks, L):
         # a stand-in value (a reading out of range, or one the cross-check doubts) gives no
         # rise, into it or out of it
         standin = suspect or not L.bus_plausible(m)
-        ahead = gb
-        if not standin and prev_gb and gb > prev_gb:
-            ahead = gb + 2 * (gb - prev_gb)
+        # (only a bus running up: more than 1/64 of itself; a steady one over the zone's top
+        # eighth alone)
+        if not standin and prev_gb and gb - prev_gb > gb >> 6:
+            zone_mv = span_mv
+            over = gb + 2 * (gb - prev_gb) - rec_mv
+        else:
+            zone_mv = max(1, (trip_mv - rec_mv) >> 3)
+            over = gb - trip_mv + zone_mv
         prev_gb = 0 if standin else max(gb, 0)
-        over = ahead - rec_mv
-        prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // span_mv)
+        prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // zone_mv)
         soft_dump = max(prop, soft_dump - SOFT_RELEASE)
         if L.overspeed_mv is not None and not c.fault & (F_BUS_SENSOR | F_OVP | F_OVP_LOCKOUT):
             over = m.bus_mv - L.overspeed_mv
             prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // OVERSPEED_RAMP_MV)
-            ovs_dump = max(prop, ovs_dump - OVERSPEED_RELEASE)
+            held = ovs_dump
+            if held:
+                held = min(DUTY_MAX, held + max(-OVERSPEED_RELEASE, over >> OVERSPEED_KI_SHIFT))
+            ovs_dump = max(prop, held)
         if o.latched:
             guard_dump = DUTY_MAX
             assert c.dump_duty == DUTY_MAX, _where(t, "latched, dump load not fully on")

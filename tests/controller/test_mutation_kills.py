@@ -862,15 +862,25 @@ def test_the_hold_restarts_from_zero_when_the_bus_comes_back_over_recovery():
 
 
 def test_the_soft_zone_dump_is_in_proportion_from_the_first_mv():
-    """Invariant (docs/profile.md ovp_recover_v, DEVELOPERS.md): between recovery and the trip
-    the dump load comes in in proportion to the bus over recovery (none at recovery, full at
-    the trip), at once: 1 mV over recovery already asks for its share of a 3 V zone."""
+    """Invariant (docs/profile.md ovp_recover_v, DEVELOPERS.md): on a steady bus the dump load
+    comes in in proportion over the zone's top eighth (none at its bottom, full at the trip),
+    at once: 1 mV into it already asks for its share; on a bus running up (more than 1/64 of
+    itself in a period) the whole zone reads where twice that rise would take it."""
     p = build(doc_with())  # recovery 21 V, trip 24 V
+    top_mv = (p.ovp_trip_mv - p.ovp_recover_mv) >> 3
+    for over_mv in (0, 1, top_mv // 2, top_mv - 1):
+        g = OverVoltGuard(p)
+        g.update(p.ovp_trip_mv - top_mv + over_mv, 50, 0, 0)
+        assert g.dump == over_mv * DUTY_MAX // top_mv and g.tripped == 0
     span_mv = p.ovp_trip_mv - p.ovp_recover_mv
     for over_mv in (0, 1, span_mv // 2, span_mv - 1):
         g = OverVoltGuard(p)
-        g.update(p.ovp_recover_mv + over_mv, 50, 0, 0)
-        assert g.dump == over_mv * DUTY_MAX // span_mv and g.tripped == 0
+        bus_mv = p.ovp_recover_mv - 1000
+        g.update(bus_mv, 50, 0, 0)
+        rise_mv = (over_mv + 1000) // 3  # bus + 2 x rise = recovery + over (to 1 mV)
+        g.update(bus_mv + rise_mv, 50, 50, 0)
+        ahead = bus_mv + 3 * rise_mv - p.ovp_recover_mv
+        assert g.dump == max(0, ahead) * DUTY_MAX // span_mv and g.tripped == 0
 
 
 # --- buckloop ------------------------------------------------------------------------------------
