@@ -87,7 +87,7 @@ _CONV_MS = const(8)  # conv_ms: how long the converter has run, ms (capped at th
 _C_BUS_MIN_MV = const(0)
 _C_BUS_HYST_MV = const(1)
 _C_DEBOUNCE_MS = const(2)
-_C_VBUS_MIN_MV = const(3)
+_C_VBUS_MIN_MV = const(3)  # the VBUS window shrunk by the sensor's tolerance (profile_system)
 _C_VBUS_MAX_MV = const(4)
 _C_TOL_PCT = const(5)
 _C_SHORT_MV = const(6)
@@ -99,7 +99,8 @@ class UsbPort:
         self.st = array("i", [0] * 9)  # the state, slots above
         self.st[_WANT] = p.scheme + 1
         self.cfg = array("i", [p.usb_bus_min_mv, p.usb_bus_hyst_mv, p.usb_debounce_ms,
-                               p.vbus_min_mv, p.vbus_max_mv, p.line_tol_pct, p.short_tol_mv])
+                               p.vbus_on_min_mv, p.vbus_on_max_mv, p.line_tol_pct,
+                               p.short_tol_mv])
 
     @micropython.viper
     def block(self):

@@ -78,6 +78,12 @@ class Limits:
         self.scheme = u["scheme"]
         self.vbus_min_mv = fv(u["vbus_min_v"]) * 1000
         self.vbus_max_mv = fv(u["vbus_max_v"]) * 1000
+        # docs/profile.md, sensors: the port switches on only inside the window shrunk by the
+        # VBUS sensor's tolerance (gain x the edge, rounded up to the mV, plus the offset)
+        g = fv(sen.get("vbus_gain_tol_pct", 0.5)) / 100
+        off = fv(sen.get("vbus_offset_tol_mv", 4))
+        self.vbus_on_min_mv = self.vbus_min_mv + math.ceil(self.vbus_min_mv * g) + off
+        self.vbus_on_max_mv = self.vbus_max_mv - math.ceil(self.vbus_max_mv * g) - off
         self.line_tol = fv(u["line_tolerance_pct"]) / 100
         self.short_mv = fv(u["short_tolerance_mv"])
         self.debounce_ms = fv(u["debounce_ms"])
@@ -210,14 +216,15 @@ def check_i3(ticks, L):
 
 
 def check_i4(ticks, L):
-    """I4: usb_on is 1 only while VBUS is inside its window and the data lines show the
+    """I4: usb_on is 1 only while VBUS is inside its window, shrunk by the VBUS sensor's
+    tolerance, and the data lines show the
     profile's scheme (judged with the probe state they were read in), and only after they
     have done so for the debounce time; and only with the converter on."""
     probe = 0  # the probe command in force while this tick's readings were taken
     since_ms = ticks[0].t_abs if ticks else 0  # time of the last tick that was not ok
     for t in ticks:
         m, c = t.m, t.c
-        ok = (c.usb_conv == 1 and L.vbus_min_mv <= m.usb_vbus_mv <= L.vbus_max_mv
+        ok = (c.usb_conv == 1 and L.vbus_on_min_mv <= m.usb_vbus_mv <= L.vbus_on_max_mv
               and L.usb_plausible(m) and L.lines_match(m.usb_dp_mv, m.usb_dm_mv, m.usb_vbus_mv,
                                                       probe))
         if not ok:

@@ -210,19 +210,32 @@ def test_the_ceiling_outside_the_window_is_the_ceiling_at_its_edge(stage):
 
 
 def test_charging_resumes_only_a_degree_inside_the_window():
-    """Invariant (leadacid.py _TEMP_HYST_DC): after leaving the charging window, charging
-    resumes only 1.0 C back inside it, so a noisy sensor at the edge does not switch the
-    charger (and the load on the drive) on and off every tick."""
+    """Invariant (leadacid.py _TEMP_HYST_DC, _TEMP_HYST_LSB, _TEMP_BACK_MS): after leaving the
+    charging window, charging resumes only 1.0 C (or 3 LSB of the sensor, if more) back inside
+    it, held there for 5 s, so a noisy sensor at the edge does not switch the charger (and the
+    load on the drive) on and off every tick."""
     p = build(doc_with())
     ch = LeadAcidCharger(p)
     m = Measurements()
     m.bus_mv, m.batt_mv, m.batt_ma = 15000, 12800, 500
-    for t_dc, blocked in ((250, False), (p.temp_max_dc + 1, True), (p.temp_max_dc - 5, True),
-                          (p.temp_max_dc - 10, False), (p.temp_min_dc - 1, True),
-                          (p.temp_min_dc + 9, True), (p.temp_min_dc + 10, False)):
+    for t_dc, n, blocked in ((250, 1, False), (p.temp_max_dc + 1, 1, True),
+                             (p.temp_max_dc - 5, 200, True), (p.temp_max_dc - 10, 99, True),
+                             (p.temp_max_dc - 10, 1, False), (p.temp_min_dc - 1, 1, True),
+                             (p.temp_min_dc + 9, 200, True), (p.temp_min_dc + 10, 99, True),
+                             (p.temp_min_dc + 9, 1, True), (p.temp_min_dc + 10, 99, True),
+                             (p.temp_min_dc + 10, 1, False)):
         m.batt_temp_dc = t_dc
-        ch.update(m, 50, 9000)
+        for _ in range(n):
+            ch.update(m, 50, 9000)
         assert bool(ch.fault & F_TEMP_WINDOW) == blocked == bool(ch.blocked), t_dc
+    p = build(doc_with(sensors__temp_lsb_c=0.5))  # 3 LSB = 1.5 C
+    ch = LeadAcidCharger(p)
+    for t_dc, n, blocked in ((p.temp_min_dc - 1, 1, True), (p.temp_min_dc + 14, 200, True),
+                             (p.temp_min_dc + 15, 99, True), (p.temp_min_dc + 15, 1, False)):
+        m.batt_temp_dc = t_dc
+        for _ in range(n):
+            ch.update(m, 50, 9000)
+        assert bool(ch.blocked) == blocked, t_dc
 
 
 # --- supercap: the regulator's target ------------------------------------------------------
@@ -717,9 +730,9 @@ def test_once_resumed_the_window_edges_are_inside_again():
     inside"): once charging has resumed, the window is the window again: its edges are inside
     (docs/profile.md charge_temp_max_c), no hysteresis left over."""
     p, ch, m = charger()
-    for t_dc, blocked in ((p.temp_max_dc + 1, True), (p.temp_max_dc - 10, False),
-                          (p.temp_max_dc, False), (p.temp_min_dc, False)):
-        tick(ch, m, 50, batt_mv=12800, batt_ma=500, batt_temp_dc=t_dc)
+    for t_dc, n, blocked in ((p.temp_max_dc + 1, 1, True), (p.temp_max_dc - 10, 100, False),
+                             (p.temp_max_dc, 1, False), (p.temp_min_dc, 1, False)):
+        tick(ch, m, 50, n, batt_mv=12800, batt_ma=500, batt_temp_dc=t_dc)
         assert bool(ch.blocked) == blocked, t_dc
 
 

@@ -247,13 +247,18 @@ def test_debounce_restarts_on_a_glitch():
 
 
 def test_vbus_window_edges_are_inside():
-    # BC1.2 §1.4.11 V_CHG 4.75-5.25 V (profile defaults)
-    for vbus_mv in (4750, 5250):
+    """Invariant (docs/profile.md sensors.vbus_gain_tol_pct): the port switches on only with
+    the reading inside BC1.2 1.4.11 V_CHG 4.75-5.25 V shrunk by the VBUS sensor's tolerance
+    (0.5 % x edge, rounded up, + 4 mV: 4.778-5.219 V); the shrunk window's edges are inside,
+    a reading 1 mV beyond them is not. Regression: a sensor 0.33 % high kept a port on for 41 s
+    at a true 4.745 V (it read 4.761 V)."""
+    for vbus_mv, on in ((4778, 1), (5219, 1), (4777, 0), (5220, 0), (4761, 0), (4750, 0)):
         u = Port(usb__scheme="div_2v7_2v7", usb__debounce_ms=10)
+        assert (u.port.p.vbus_on_min_mv, u.port.p.vbus_on_max_mv) == (4778, 5219)
         u.step(bus_mv=12000)
         level = round(divider_mv(*LEVEL_27, vbus_mv))
         u.step(2, usb_vbus_mv=vbus_mv, usb_dp_mv=level, usb_dm_mv=level)
-        assert u.port.on == 1
+        assert u.port.on == on, vbus_mv
 
 
 def test_divider_schemes_never_probe():
