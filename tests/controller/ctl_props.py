@@ -300,7 +300,8 @@ def check_i5(ticks, L):
     Between recovery and the trip the dump load comes in in proportion at once (on a bus
     running up, more than 1/64 of itself in a period, none at recovery and full at the trip,
     judged where twice the last period's rise would take it; on any other bus over the zone's
-    top eighth only) and lets go by at most 5 % of full per period. While the
+    top eighth only) and lets go by at most 5 % of full per period; a storage converter that
+    steps off carrying current on a bus running up puts it fully on. While the
     controller's cross-check holds the bus reading false, the dump load is fully on (also on a
     tick whose reading is out of range: the latch carries over it). With MPPT and an
     overspeed level the dump load also follows the bus above it (full over 1 V) at once, and
@@ -313,6 +314,7 @@ def check_i5(ticks, L):
     ovs_dump = 0  # what overspeed asks of it (advanced on the ticks that reach the tracker)
     soft_dump = 0  # the guard's soft zone (docs/profile.md, bus)
     prev_gb = 0  # the bus the guard judged last period, mV (0: none, or a stand-in)
+    prev_bd = prev_cd = 0  # last tick's storage duties
     trip_mv = math.floor(L.trip_mv + F(1, 2))  # the profile's integer mV (to_int rounding)
     rec_mv = math.floor(L.recover_mv + F(1, 2))
     span_mv = max(1, trip_mv - rec_mv)
@@ -339,7 +341,8 @@ def check_i5(ticks, L):
         standin = suspect or not L.bus_plausible(m)
         # (only a bus running up: more than 1/64 of itself; a steady one over the zone's top
         # eighth alone)
-        if not standin and prev_gb and gb - prev_gb > gb >> 6:
+        running_up = bool(not standin and prev_gb and gb - prev_gb > gb >> 6)
+        if running_up:
             zone_mv = span_mv
             over = gb + 2 * (gb - prev_gb) - rec_mv
         else:
@@ -348,6 +351,13 @@ def check_i5(ticks, L):
         prev_gb = 0 if standin else max(gb, 0)
         prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // zone_mv)
         soft_dump = max(prop, soft_dump - SOFT_RELEASE)
+        # a store's converter that steps off carrying current (over 200 mA) on a bus running
+        # up: the dump takes its place, fully on, letting go as the soft zone does
+        if (running_up and not c.fault & (F_BUS_SENSOR | F_OVP | F_OVP_LOCKOUT)
+                and ((prev_bd and not c.batt_duty and m.batt_ma > 200)
+                     or (prev_cd and not c.cap_duty and m.cap_ma > 200))):
+            soft_dump = DUTY_MAX
+        prev_bd, prev_cd = c.batt_duty, c.cap_duty
         if L.overspeed_mv is not None and not c.fault & (F_BUS_SENSOR | F_OVP | F_OVP_LOCKOUT):
             over = m.bus_mv - L.overspeed_mv
             prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // OVERSPEED_RAMP_MV)
