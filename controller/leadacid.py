@@ -8,7 +8,7 @@ from array import array
 
 from controller.buckloop import BuckLoop, regulate
 from controller.compat import MICROPYTHON, const, micropython
-from controller.signals import ST_ABSORPTION, ST_BULK, ST_EQUALIZE
+from controller.signals import ST_BULK
 
 if not MICROPYTHON:  # on a board the viper compiler reads ptr32() itself
     from controller.compat import ptr32, state_names
@@ -28,24 +28,20 @@ _F_BATT_OVER = const(1024)
 _TEMP_MIN_PLAUSIBLE_DC = const(-400)  # an open NTC reads colder than this
 _TEMP_MAX_PLAUSIBLE_DC = const(850)  # a shorted NTC reads hotter than this
 _TEMP_HYST_DC = const(10)  # charging resumes 1.0 C inside the window (a noisy sensor at the
-# edge would otherwise switch the charger, and the load on the drive, on and off every tick)
+# edge would otherwise switch the charger, and the load on the drive, on and off every tick),
+# or 3 LSB of the sensor if that is more, and only after _TEMP_BACK_MS there: one LSB of noise
+# on a coarse NTC near 0 C cleared the 1 C (23 bulk/blocked flips in 11 minutes)
+_TEMP_HYST_LSB = const(3)
+_TEMP_BACK_MS = const(5000)
+# Time off absorption's tail counts the tail timer down instead of restarting it: every pulse
+# of a lamp or a USB device restarted it, and absorption never reached float. So the tail ends
+# absorption once the battery has spent tail_hold more time on the tail than off it; the time
+# limit ends it whatever the tail does.
 _REVERSED_MV = const(-200)  # a battery further negative than this is connected backwards
 _BIG_MV = const(100000)
 if not MICROPYTHON:  # the host's names for the plausible range (private on the board: no RAM)
     TEMP_MIN_PLAUSIBLE_DC = _TEMP_MIN_PLAUSIBLE_DC
     TEMP_MAX_PLAUSIBLE_DC = _TEMP_MAX_PLAUSIBLE_DC
-
-
-def comp_mv(p, cell_mv, temp_dc):
-    """Block setpoint for a per-cell voltage at a battery temperature, compensated by the
-    profile's coefficient; the temperature is clamped to the charging window first.
-    Integer: cells x (cell_mv + tc_uv_dc x dT / 1000)."""
-    if temp_dc < p.temp_min_dc:
-        temp_dc = p.temp_min_dc
-    elif temp_dc > p.temp_max_dc:
-        temp_dc = p.temp_max_dc
-    n = p.cells
-    return n * cell_mv + (n * p.tc_uv_dc_cell * (temp_dc - p.ref_temp_dc)) // 1000
 
 
 # Hard caps on the compensated setpoints, mV per cell: cold-battery compensation may not
@@ -55,35 +51,14 @@ _CAP_EQ_CELL_MV = const(2600)
 _CAP_FLOAT_CELL_MV = const(2350)
 
 
-def ceiling_mv(p, stage, temp_dc):
-    """The stage's compensated voltage ceiling for the block, mV, within the hard caps.
-    (The tick works the same out in LeadAcidCharger.update from its profile slots; the tests
-    hold the two equal.)"""
-    if temp_dc < p.temp_min_dc:
-        temp_dc = p.temp_min_dc
-    elif temp_dc > p.temp_max_dc:
-        temp_dc = p.temp_max_dc
-    n = p.cells
-    if stage == ST_ABSORPTION or stage == ST_BULK:
-        v = n * p.abs_cell_mv
-        top = n * _CAP_ABS_CELL_MV
-    elif stage == ST_EQUALIZE:
-        v = n * p.eq_cell_mv
-        top = n * _CAP_EQ_CELL_MV
-    else:
-        v = n * p.float_cell_mv
-        top = n * _CAP_FLOAT_CELL_MV
-    v += (n * p.tc_uv_dc_cell * (temp_dc - p.ref_temp_dc)) // 1000
-    return top if v > top else v
-
-
 # state slots of LeadAcidCharger.st (array('i'), all >= 0); the host names them (end of file)
 _STAGE = const(0)  # stage: charging stage (not ST_BLOCKED: blocking is reported apart)
 _BLOCKED = const(1)  # blocked: 1 while charging is forbidden this tick
 _FAULT = const(2)  # fault: this tick's battery fault bits
 _CEIL = const(3)  # ceil_mv: this tick's compensated ceiling, mV
 _ABS_MS = const(4)  # abs_ms: time spent charging in absorption, ms
-_TAIL_MS = const(5)  # tail_ms: time at voltage with current at or below the tail, ms
+_TAIL_MS = const(5)  # tail_ms: time at voltage with current at or below the tail, less the
+# time off it, ms
 _REBULK_MS = const(6)  # rebulk_ms: time in float below the re-bulk threshold, ms
 _EQ_MS = const(7)  # eq_ms: time spent charging in equalize, ms
 _EQ_ARMED = const(8)  # eq_armed: 1 when an equalize request (rising edge) may start one
@@ -92,7 +67,8 @@ _TOO_HOT_COLD = const(10)  # too_hot_cold: 1 after leaving the temperature windo
 # back inside
 _OUT_ON = const(11)  # out_on: discharge switch (loads, bus diode) closed
 _LVD = const(12)  # lvd: 1 after a low-voltage disconnect, until the battery reaches lvr_mv
-_N_ST = const(13)
+_BACK_MS = const(13)  # back_ms: time back inside the window by the hysteresis, ms
+_N_ST = const(14)
 
 # profile slots of LeadAcidCharger.cfg (array('i')), in the tick's units; block = cells x cell
 _C_TEMP_MIN = const(0)  # charging window, deci-degrees C (signed slot)
@@ -116,7 +92,8 @@ _C_ABS_MAX_MS = const(17)
 _C_REBULK_MV = const(18)  # cells x rebulk_cell_mv
 _C_REBULK_HOLD_MS = const(19)
 _C_EQ_MAX_MS = const(20)  # p.eq_ms
-_N_CFG = const(21)
+_C_TEMP_HYST = const(21)  # re-entry hysteresis, deci-degrees C
+_N_CFG = const(22)
 _L_U = const(0)  # the slots of BuckLoop.st (buckloop._U, _DUTY, _BUS_LAST)
 _L_DUTY = const(1)
 _L_BUS_LAST = const(2)
@@ -155,6 +132,8 @@ class LeadAcidCharger:
         cfg[_C_REBULK_MV] = n * p.rebulk_cell_mv
         cfg[_C_REBULK_HOLD_MS] = p.rebulk_hold_ms
         cfg[_C_EQ_MAX_MS] = p.eq_ms
+        hyst = max(_TEMP_HYST_DC, _TEMP_HYST_LSB * p.temp_lsb_dc)
+        cfg[_C_TEMP_HYST] = min(hyst, (p.temp_max_dc - p.temp_min_dc) // 4)  # a window to return to
         self.cfg = cfg
         self.loop = BuckLoop()
 
@@ -201,11 +180,19 @@ class LeadAcidCharger:
             if t < lo or t > hi:
                 fault = _F_TEMP_WINDOW
                 s[_TOO_HOT_COLD] = 1
+                s[_BACK_MS] = 0
             elif s[_TOO_HOT_COLD]:
-                if t < lo + _TEMP_HYST_DC or t > hi - _TEMP_HYST_DC:
-                    fault = _F_TEMP_WINDOW  # back inside, but not yet by the hysteresis
+                fault = _F_TEMP_WINDOW
+                hyst = cfg[_C_TEMP_HYST]
+                if t < lo + hyst or t > hi - hyst:
+                    s[_BACK_MS] = 0  # back inside, but not yet by the hysteresis
                 else:
-                    s[_TOO_HOT_COLD] = 0
+                    back = s[_BACK_MS] + dt_ms
+                    if back >= _TEMP_BACK_MS:
+                        back = 0
+                        fault = 0
+                        s[_TOO_HOT_COLD] = 0
+                    s[_BACK_MS] = back
         if v < _REVERSED_MV:
             fault |= _F_BATT_REVERSED
             s[_LOST] = 1
@@ -257,10 +244,14 @@ class LeadAcidCharger:
                 duty = ((ptr32(loop)[_L_DUTY] + _S_HALF) & _S_MASK) - _S_HALF  # signed slot
                 if duty > 0 and i_ma > 0:  # charging
                     s[_ABS_MS] = s[_ABS_MS] + dt_ms
+                tail = s[_TAIL_MS]
                 if at_v and i_ma <= cfg[_C_TAIL_MA]:
-                    s[_TAIL_MS] = s[_TAIL_MS] + dt_ms
+                    tail += dt_ms
+                elif tail > dt_ms:
+                    tail -= dt_ms
                 else:
-                    s[_TAIL_MS] = 0
+                    tail = 0
+                s[_TAIL_MS] = tail
                 if eq_req and s[_EQ_ARMED] and cfg[_C_EQ_MV] > 0:
                     new = _ST_EQUALIZE
                 elif (s[_TAIL_MS] >= cfg[_C_TAIL_HOLD_MS]
@@ -318,4 +309,5 @@ if not MICROPYTHON:
     state_names(LeadAcidCharger, "st", stage=_STAGE, blocked=_BLOCKED, fault=_FAULT,
                 ceil_mv=_CEIL, abs_ms=_ABS_MS, tail_ms=_TAIL_MS, rebulk_ms=_REBULK_MS,
                 eq_ms=_EQ_MS, eq_armed=_EQ_ARMED, lost=_LOST, too_hot_cold=_TOO_HOT_COLD,
-                out_on=_OUT_ON, lvd=_LVD)
+                out_on=_OUT_ON, lvd=_LVD, back_ms=_BACK_MS)
+    from controller.leadacid_host import ceiling_mv, comp_mv  # noqa: E402,F401 (re-exported)

@@ -29,6 +29,11 @@ _RELEASE_STEP = const(1000)
 # feedforward does): a crank freed of its loads went 17.6 -> 21.0 -> 28.2 V, from the bottom
 # of the zone past the trip plus margin in one period.
 _SOFT_RELEASE = const(500)
+# That reading ahead is for a bus running up: one that rose more than 1/64 of itself in a
+# period. On a steady bus the zone is its top eighth only: a pedal rig whose EMF at cadence sat
+# above recovery had the soft zone on through normal charging, taking 29 % of the rider's
+# input that the rider need not have given (a human drive eases off on an unloaded bus).
+_RISE_SHIFT = const(6)
 
 
 # state slots of OverVoltGuard.st (array('i'), all >= 0); the host names them (end of file)
@@ -51,6 +56,7 @@ _C_HOLD_MS = const(2)
 _C_WINDOW_MS = const(3)
 _C_LOCKOUT_TRIPS = const(4)
 _C_SOFT_SPAN_MV = const(5)  # soft_span_mv: recovery to trip, mV (at least 1)
+_C_STEADY_SPAN_MV = const(6)  # steady_span_mv: the zone's top eighth, mV (at least 1)
 
 
 class OverVoltGuard:
@@ -59,7 +65,8 @@ class OverVoltGuard:
         self.st = array("i", [0] * 11)  # the state, slots above
         self.trip_at = array("i", [0] * p.lockout_trips)  # ring of recent trip times (now_ms)
         self.cfg = array("i", [p.ovp_trip_mv, p.ovp_recover_mv, p.ovp_hold_ms, p.trip_window_ms,
-                               p.lockout_trips, max(1, p.ovp_trip_mv - p.ovp_recover_mv)])
+                               p.lockout_trips, max(1, p.ovp_trip_mv - p.ovp_recover_mv),
+                               max(1, (p.ovp_trip_mv - p.ovp_recover_mv) >> 3)])
 
     @micropython.viper
     def update(self, bus_mv: int, dt_ms: int, now_ms: int, reset_req: int):
@@ -101,13 +108,17 @@ class OverVoltGuard:
             ramp = 0
         s[_RAMP] = ramp
         soft = 0
-        ahead = bus_mv  # where the bus may be a period on
         last = s[_BUS_LAST]
-        if last and bus_mv > last:
-            ahead = bus_mv + ((bus_mv - last) << 1)
         s[_BUS_LAST] = bus_mv if bus_mv > 0 else 0
-        over = ahead - cfg[_C_RECOVER_MV]
-        span = cfg[_C_SOFT_SPAN_MV]
+        if last and bus_mv - last > bus_mv >> _RISE_SHIFT:
+            # running up: where the bus may be a period on, over the whole zone
+            span = cfg[_C_SOFT_SPAN_MV]
+            over = bus_mv + ((bus_mv - last) << 1) - cfg[_C_RECOVER_MV]
+        else:
+            # steady: only the zone's top (a bus parked under the trip is a source the stores
+            # and loads are full of; the dump would load it for nothing)
+            span = cfg[_C_STEADY_SPAN_MV]
+            over = bus_mv - cfg[_C_TRIP_MV] + span
         if over >= span:
             soft = _DUTY_MAX
         elif over > 0:
@@ -155,4 +166,5 @@ if not MICROPYTHON:
     state_names(OverVoltGuard, "st", tripped=_TRIPPED, locked=_LOCKED, below_ms=_BELOW_MS,
                 n_trips=_N_TRIPS, next=_NEXT, last_ms=_LAST_MS, trips_total=_TRIPS_TOTAL,
                 ramp=_RAMP, soft=_SOFT, dump=_DUMP, bus_last_mv=_BUS_LAST)
-    state_names(OverVoltGuard, "cfg", soft_span_mv=_C_SOFT_SPAN_MV)
+    state_names(OverVoltGuard, "cfg", soft_span_mv=_C_SOFT_SPAN_MV,
+                steady_span_mv=_C_STEADY_SPAN_MV)

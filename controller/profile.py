@@ -51,6 +51,8 @@ class Profile:
         self.scheme = 0  # index into SCHEMES
         self.vbus_min_mv = 0
         self.vbus_max_mv = 0
+        self.vbus_on_min_mv = 0  # the window shrunk by the VBUS sensor's tolerance, mV
+        self.vbus_on_max_mv = 0
         self.line_tol_pct = 0  # data-line window, +/- percent of the nominal level
         self.short_tol_mv = 0  # largest D+/D- difference that still counts as shorted, mV
         self.usb_debounce_ms = 0  # readings stable this long before the port closes, ms
@@ -70,6 +72,9 @@ class Profile:
         self.cap_fs_mv = 0
         self.vbus_fs_mv = 0
         self.line_fs_mv = 0
+        self.vbus_gain_tol_ppm = 0  # VBUS sensor gain tolerance, ppm of the reading ...
+        self.vbus_offset_tol_mv = 0  # ... and offset tolerance, mV (the port's guard band)
+        self.temp_lsb_dc = 1  # battery temperature sensor resolution, deci-degrees C
         # control
         self.period_ms = 0  # tick period, ms
         self.mppt = False  # hold the machine near its maximum power point (wind, hydro)

@@ -21,7 +21,8 @@ SECTIONS = {
     "bus": ("ovp_trip_v", "ovp_recover_v", "ovp_hold_ms", "trip_window_s", "lockout_trips",
             "floor_v"),
     "sensors": ("bus_full_scale_v", "batt_full_scale_v", "batt_current_full_scale_a",
-                "cap_full_scale_v", "vbus_full_scale_v", "line_full_scale_v"),
+                "cap_full_scale_v", "vbus_full_scale_v", "line_full_scale_v",
+                "vbus_gain_tol_pct", "vbus_offset_tol_mv", "temp_lsb_c"),
     "control": ("period_ms", "mppt", "mppt_step_v", "mppt_interval_ms", "overspeed_bus_v"),
 }
 

@@ -75,6 +75,12 @@ def sensors(p, x):
     p.cap_fs_mv = to_int(_num(x, s, "cap_full_scale_v", 3, 60, 20, "V"), 1000)
     p.vbus_fs_mv = to_int(_num(x, s, "vbus_full_scale_v", 5.5, 20, 8.0, "V"), 1000)
     p.line_fs_mv = to_int(_num(x, s, "line_full_scale_v", 2.8, 5.5, 3.3, "V"), 1000)
+    # the VBUS sensor's own tolerance: the port's window is shrunk by it (cross_checks)
+    p.vbus_gain_tol_ppm = to_int(_num(x, s, "vbus_gain_tol_pct", 0, 5, 0.5, "%"), 10000)
+    p.vbus_offset_tol_mv = to_int(_num(x, s, "vbus_offset_tol_mv", 0, 200, 4, "mV"), 1)
+    # the battery temperature sensor's resolution: the window's re-entry hysteresis is sized
+    # from it (leadacid.py)
+    p.temp_lsb_dc = max(1, to_int(_num(x, s, "temp_lsb_c", 0.01, 2, 0.1, "C"), 10))
 
 
 def control(p, c):
@@ -117,6 +123,17 @@ def cross_checks(p):
     if p.vbus_max_mv >= p.vbus_fs_mv:
         _fail("sensors.vbus_full_scale_v", p.vbus_fs_mv / 1000,
               "must exceed usb.vbus_max_v", "the sensor must see VBUS above its window")
+    # the port switches on only with the reading inside the window shrunk by what the sensor
+    # may be off (gain x reading + offset), so the true VBUS is inside the window
+    p.vbus_on_min_mv = (p.vbus_min_mv + (p.vbus_min_mv * p.vbus_gain_tol_ppm + 999999) // 1000000
+                        + p.vbus_offset_tol_mv)
+    p.vbus_on_max_mv = (p.vbus_max_mv - (p.vbus_max_mv * p.vbus_gain_tol_ppm + 999999) // 1000000
+                        - p.vbus_offset_tol_mv)
+    if p.vbus_on_min_mv >= p.vbus_on_max_mv:
+        _fail("sensors.vbus_gain_tol_pct", p.vbus_gain_tol_ppm / 10000,
+              "with vbus_offset_tol_mv = %d the guard band leaves no VBUS window (%.3f-%.3f V)"
+              % (p.vbus_offset_tol_mv, p.vbus_min_mv / 1000, p.vbus_max_mv / 1000),
+              "the port could never switch on")
     if p.mppt and p.overspeed_mv and not (p.floor_mv < p.overspeed_mv < p.ovp_trip_mv):
         _fail("control.overspeed_bus_v", p.overspeed_mv / 1000,
               "must lie between bus.floor_v and bus.ovp_trip_v", "dump ramp below the trip")

@@ -15,6 +15,9 @@
 #  5. Supercap: backs off at a floor _CAP_FLOOR_MV higher, so it yields first as the drive
 #     slows and takes what the battery leaves.
 #  With MPPT the floor is the hill-climbing setpoint instead of the profile's fixed floor.
+#  6. A storage converter that stepped off carrying current on a bus running up puts the dump
+#     load fully on (then it lets go as the soft zone does): the machine is never left
+#     unloaded within a period.
 from array import array
 
 from controller.compat import MICROPYTHON, const, micropython
@@ -51,7 +54,10 @@ _F_USB_SENSOR = const(64)
 # the slots the tick reads from its parts' state arrays (their modules' _NAME, same test)
 _OVP_TRIPPED = const(0)  # overvolt._TRIPPED
 _OVP_LOCKED = const(1)  # overvolt._LOCKED
+_OVP_SOFT = const(8)  # overvolt._SOFT
 _OVP_DUMP = const(9)  # overvolt._DUMP
+_OVP_BUS_LAST = const(10)  # overvolt._BUS_LAST
+_RISE_SHIFT = const(6)  # overvolt._RISE_SHIFT: a bus running up rose more than 1/64 of itself
 _USB_CONV = const(1)  # usbport._CONV
 _USB_ON = const(2)  # usbport._ON
 _USB_PROBE = const(3)  # usbport._PROBE
@@ -168,6 +174,8 @@ class Supervisor:
         g = ptr32(ovp.st)
         if fault:  # a stand-in bus value: the guard reads no rise into it, nor out of it
             ovp.forget_rise()
+        last = g[_OVP_BUS_LAST]
+        rising = 1 if (last and bus - last > bus >> _RISE_SHIFT) else 0
         ovp.update(bus, dt, now_ms, int(m.reset_req))
         if fault:
             ovp.forget_rise()
@@ -231,6 +239,8 @@ class Supervisor:
         # battery
         charger = self.charger
         ch = ptr32(charger.st)
+        was_batt = int(c.batt_duty)  # last tick's duties
+        was_cap = int(c.cap_duty)
         fs = cfg[_C_BATT_FS_MV]
         if batt_mv < -fs or batt_mv > fs or batt_ma < -fs_ma or batt_ma > fs_ma:
             fault |= _F_BATT_SENSOR
@@ -254,6 +264,15 @@ class Supervisor:
             fault |= k[_CAP_FAULT]
         c.bal_mask = k[_CAP_BAL_MASK]
         c.fault = fault
+        # A store's converter that steps off carrying current on a bus running up leaves the
+        # source unloaded within the period: the dump load takes its place (fully on, then
+        # letting go as the soft zone does). A crank whose torque built within 0.05 s from a
+        # rest ran its bus 14.8 -> 28.3 V in one 20 ms period when the battery's converter
+        # stepped off its 6.4 A start.
+        if rising and ((was_batt and not int(c.batt_duty) and batt_ma > _XCHK_MA)
+                       or (was_cap and not int(c.cap_duty) and cap_ma > _XCHK_MA)):
+            g[_OVP_SOFT] = _DUTY_MAX
+            c.dump_duty = _DUTY_MAX
 
     @micropython.viper
     def _taps_implausible(self) -> int:

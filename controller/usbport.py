@@ -83,11 +83,17 @@ _OK_MS = const(6)  # ok_ms: how long VBUS and lines have matched, ms
 _FAULT = const(7)  # fault: this tick's fault bits (F_USB_LINES while the converter runs
 # unmatched)
 _CONV_MS = const(8)  # conv_ms: how long the converter has run, ms (capped at the debounce time)
+_HOLD_MS = const(9)  # hold_ms: the port stays open this much longer, ms (after VBUS left the
+# window under the device's load)
+# A port whose VBUS leaves the window under the device's load stays open _HOLD_OFF_MS: the
+# unloaded VBUS reads inside again at once, and a 0.1 ohm converter a phone pulled to 4.745 V
+# was switched on and off every few periods (one period each time outside the window)
+_HOLD_OFF_MS = const(5000)
 # profile slots of UsbPort.cfg (array('i'))
 _C_BUS_MIN_MV = const(0)
 _C_BUS_HYST_MV = const(1)
 _C_DEBOUNCE_MS = const(2)
-_C_VBUS_MIN_MV = const(3)
+_C_VBUS_MIN_MV = const(3)  # the VBUS window shrunk by the sensor's tolerance (profile_system)
 _C_VBUS_MAX_MV = const(4)
 _C_TOL_PCT = const(5)
 _C_SHORT_MV = const(6)
@@ -96,10 +102,11 @@ _C_SHORT_MV = const(6)
 class UsbPort:
     def __init__(self, p):
         self.p = p
-        self.st = array("i", [0] * 9)  # the state, slots above
+        self.st = array("i", [0] * 10)  # the state, slots above
         self.st[_WANT] = p.scheme + 1
         self.cfg = array("i", [p.usb_bus_min_mv, p.usb_bus_hyst_mv, p.usb_debounce_ms,
-                               p.vbus_min_mv, p.vbus_max_mv, p.line_tol_pct, p.short_tol_mv])
+                               p.vbus_on_min_mv, p.vbus_on_max_mv, p.line_tol_pct,
+                               p.short_tol_mv])
 
     @micropython.viper
     def block(self):
@@ -137,7 +144,17 @@ class UsbPort:
         s[_MATCH] = match
         want = s[_WANT]
         on = s[_ON]
-        if conv and cfg[_C_VBUS_MIN_MV] <= vbus <= cfg[_C_VBUS_MAX_MV] and match == want:
+        hold = s[_HOLD_MS]
+        if hold > dt_ms:
+            hold -= dt_ms
+        else:
+            hold = 0
+        in_window = cfg[_C_VBUS_MIN_MV] <= vbus <= cfg[_C_VBUS_MAX_MV]
+        if on and conv and not in_window:
+            hold = _HOLD_OFF_MS
+        s[_HOLD_MS] = hold
+        ok = conv and in_window and match == want
+        if ok and not hold:
             ok_ms = s[_OK_MS]
             if ok_ms < deb:
                 ok_ms += dt_ms  # stops counting once on: stays a small int
@@ -149,7 +166,7 @@ class UsbPort:
             s[_OK_MS] = 0
             on = 0
             # a fault once the converter has run for the debounce time: not while it starts
-            s[_FAULT] = _F_USB_LINES if conv_ms >= deb else 0
+            s[_FAULT] = _F_USB_LINES if conv_ms >= deb and not ok else 0
         s[_ON] = on
         probe = 1 if (want == _M_DCP and conv and not on) else 0
         s[_PROBE] = probe
@@ -161,4 +178,4 @@ if not MICROPYTHON:  # the host's names: M_* match codes and MATCH_NAMES
     _host.publish(globals())
     state_names(UsbPort, "st", want=_WANT, conv=_CONV, on=_ON, probe=_PROBE,
                 probe_was=_PROBE_WAS, match=_MATCH, ok_ms=_OK_MS, fault=_FAULT,
-                conv_ms=_CONV_MS)
+                conv_ms=_CONV_MS, hold_ms=_HOLD_MS)

@@ -78,6 +78,12 @@ class Limits:
         self.scheme = u["scheme"]
         self.vbus_min_mv = fv(u["vbus_min_v"]) * 1000
         self.vbus_max_mv = fv(u["vbus_max_v"]) * 1000
+        # docs/profile.md, sensors: the port switches on only inside the window shrunk by the
+        # VBUS sensor's tolerance (gain x the edge, rounded up to the mV, plus the offset)
+        g = fv(sen.get("vbus_gain_tol_pct", 0.5)) / 100
+        off = fv(sen.get("vbus_offset_tol_mv", 4))
+        self.vbus_on_min_mv = self.vbus_min_mv + math.ceil(self.vbus_min_mv * g) + off
+        self.vbus_on_max_mv = self.vbus_max_mv - math.ceil(self.vbus_max_mv * g) - off
         self.line_tol = fv(u["line_tolerance_pct"]) / 100
         self.short_mv = fv(u["short_tolerance_mv"])
         self.debounce_ms = fv(u["debounce_ms"])
@@ -210,14 +216,15 @@ def check_i3(ticks, L):
 
 
 def check_i4(ticks, L):
-    """I4: usb_on is 1 only while VBUS is inside its window and the data lines show the
+    """I4: usb_on is 1 only while VBUS is inside its window, shrunk by the VBUS sensor's
+    tolerance, and the data lines show the
     profile's scheme (judged with the probe state they were read in), and only after they
     have done so for the debounce time; and only with the converter on."""
     probe = 0  # the probe command in force while this tick's readings were taken
     since_ms = ticks[0].t_abs if ticks else 0  # time of the last tick that was not ok
     for t in ticks:
         m, c = t.m, t.c
-        ok = (c.usb_conv == 1 and L.vbus_min_mv <= m.usb_vbus_mv <= L.vbus_max_mv
+        ok = (c.usb_conv == 1 and L.vbus_on_min_mv <= m.usb_vbus_mv <= L.vbus_on_max_mv
               and L.usb_plausible(m) and L.lines_match(m.usb_dp_mv, m.usb_dm_mv, m.usb_vbus_mv,
                                                       probe))
         if not ok:
@@ -273,7 +280,8 @@ class OvpOracle:
 RELEASE_PERIODS = 10  # overvolt.py: after the latch clears the dump steps down over ten periods
 SOFT_RELEASE = DUTY_MAX // 20  # docs/profile.md: the soft zone's dump falls 5 % per period
 OVERSPEED_RAMP_MV = 1000  # docs/profile.md: the overspeed dump goes 0 -> full over 1 V ...
-OVERSPEED_RELEASE = DUTY_MAX // 20  # ... and falls by at most 5 % of full per period
+OVERSPEED_RELEASE = DUTY_MAX // 20  # ... and falls by at most 5 % of full per period;
+OVERSPEED_KI_SHIFT = 2  # once in, it integrates the bus error: err >> 2 duty per period
 
 
 def bus_suspect(t, L):
@@ -289,13 +297,16 @@ def check_i5(ticks, L):
     USB off and both storage duties 0, in that tick; the latch holds until the bus has read
     below recovery for the hold time, then the dump load steps down to off over ten periods;
     lockout_trips trips within the window keep every output off until reset.
-    Between recovery and the trip the dump load comes in in proportion at once (none at
-    recovery, full at the trip; on a rising bus judged where twice the last period's rise
-    would take it) and lets go by at most 5 % of full per period. While the
+    Between recovery and the trip the dump load comes in in proportion at once (on a bus
+    running up, more than 1/64 of itself in a period, none at recovery and full at the trip,
+    judged where twice the last period's rise would take it; on any other bus over the zone's
+    top eighth only) and lets go by at most 5 % of full per period; a storage converter that
+    steps off carrying current on a bus running up puts it fully on. While the
     controller's cross-check holds the bus reading false, the dump load is fully on (also on a
     tick whose reading is out of range: the latch carries over it). With MPPT and an
     overspeed level the dump load also follows the bus above it (full over 1 V) at once, and
-    lets go by at most 5 % of full per period; while a bus fault or the guard keeps the
+    once in integrates the bus error over overspeed (err >> 2 per period), falling by at most
+    5 % of full per period; while a bus fault or the guard keeps the
     tracker from running, the overspeed dump holds its last duty (docs/profile.md, control)."""
     o = OvpOracle(L)
     prev_abs = None
@@ -303,6 +314,7 @@ def check_i5(ticks, L):
     ovs_dump = 0  # what overspeed asks of it (advanced on the ticks that reach the tracker)
     soft_dump = 0  # the guard's soft zone (docs/profile.md, bus)
     prev_gb = 0  # the bus the guard judged last period, mV (0: none, or a stand-in)
+    prev_bd = prev_cd = 0  # last tick's storage duties
     trip_mv = math.floor(L.trip_mv + F(1, 2))  # the profile's integer mV (to_int rounding)
     rec_mv = math.floor(L.recover_mv + F(1, 2))
     span_mv = max(1, trip_mv - rec_mv)
@@ -327,17 +339,32 @@ def check_i5(ticks, L):
         # a stand-in value (a reading out of range, or one the cross-check doubts) gives no
         # rise, into it or out of it
         standin = suspect or not L.bus_plausible(m)
-        ahead = gb
-        if not standin and prev_gb and gb > prev_gb:
-            ahead = gb + 2 * (gb - prev_gb)
+        # (only a bus running up: more than 1/64 of itself; a steady one over the zone's top
+        # eighth alone)
+        running_up = bool(not standin and prev_gb and gb - prev_gb > gb >> 6)
+        if running_up:
+            zone_mv = span_mv
+            over = gb + 2 * (gb - prev_gb) - rec_mv
+        else:
+            zone_mv = max(1, (trip_mv - rec_mv) >> 3)
+            over = gb - trip_mv + zone_mv
         prev_gb = 0 if standin else max(gb, 0)
-        over = ahead - rec_mv
-        prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // span_mv)
+        prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // zone_mv)
         soft_dump = max(prop, soft_dump - SOFT_RELEASE)
+        # a store's converter that steps off carrying current (over 200 mA) on a bus running
+        # up: the dump takes its place, fully on, letting go as the soft zone does
+        if (running_up and not c.fault & (F_BUS_SENSOR | F_OVP | F_OVP_LOCKOUT)
+                and ((prev_bd and not c.batt_duty and m.batt_ma > 200)
+                     or (prev_cd and not c.cap_duty and m.cap_ma > 200))):
+            soft_dump = DUTY_MAX
+        prev_bd, prev_cd = c.batt_duty, c.cap_duty
         if L.overspeed_mv is not None and not c.fault & (F_BUS_SENSOR | F_OVP | F_OVP_LOCKOUT):
             over = m.bus_mv - L.overspeed_mv
             prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // OVERSPEED_RAMP_MV)
-            ovs_dump = max(prop, ovs_dump - OVERSPEED_RELEASE)
+            held = ovs_dump
+            if held:
+                held = min(DUTY_MAX, held + max(-OVERSPEED_RELEASE, over >> OVERSPEED_KI_SHIFT))
+            ovs_dump = max(prop, held)
         if o.latched:
             guard_dump = DUTY_MAX
             assert c.dump_duty == DUTY_MAX, _where(t, "latched, dump load not fully on")

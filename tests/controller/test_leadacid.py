@@ -3,8 +3,10 @@ charging temperature window, absent and reversed batteries, low-voltage disconne
 import pytest
 from ctl_bench import Bench, build, doc_with
 
+from controller import leadacid
 from controller.compat import TICKS_PERIOD
-from controller.leadacid import ceiling_mv, comp_mv
+from controller.leadacid import LeadAcidCharger, ceiling_mv, comp_mv
+from controller.signals import Measurements
 from controller.signals import (
     DUTY_MAX,
     F_BATT_ABSENT,
@@ -153,16 +155,39 @@ def to_absorption(b, batt_mv=14500):
 
 
 def test_absorption_to_float_when_tail_current_held():
+    """Invariant (leadacid.py, tail): time on the tail (at voltage, at most the tail current)
+    counts up, time off it counts down to no less than zero; the tail ends absorption once the
+    count reaches the hold."""
     p = prof(battery__tail_hold_s=5)  # tail 0.24 A
     b = Bench(p, bus_mv=18000, batt_ma=1000)
     to_absorption(b)
     b.run(99, batt_ma=240)  # 4.95 s at the tail current
+    assert b.c.stage == ST_ABSORPTION and b.charger.tail_ms == 4950
+    b.run(1, batt_ma=300)  # the current rises again: a period off the tail counts down
+    assert b.charger.tail_ms == 4900
+    b.run(1, batt_ma=200)
     assert b.c.stage == ST_ABSORPTION
-    b.run(1, batt_ma=300)  # current rises again: the hold restarts
-    b.run(99, batt_ma=200)
-    assert b.c.stage == ST_ABSORPTION
-    b.run(2, batt_ma=200)  # 5 s held
+    b.run(2, batt_ma=200)  # 5 s on the tail, net
     assert b.c.stage == ST_FLOAT
+    b = Bench(p, bus_mv=18000, batt_ma=1000)
+    to_absorption(b)
+    b.run(int(600 / 0.05), batt_ma=300)  # never on the tail: never float (until the limit)
+    assert b.c.stage == ST_ABSORPTION and b.charger.tail_ms == 0
+
+
+def test_current_pulses_do_not_restart_the_tail():
+    """Regression (a nearly full AGM with pulsing lamp and USB loads): each current pulse
+    restarted the tail timer and absorption never reached float. Invariant: a battery at 100 mA
+    with a 2 A pulse one period in twenty reaches float after 5 s on the tail net of the
+    periods off it (19 up, 1 down per second: 5.6 s)."""
+    p = prof(battery__tail_hold_s=5)
+    b = Bench(p, bus_mv=18000, batt_ma=1000)
+    to_absorption(b)
+    for k in range(int(40 / 0.05)):
+        b.run(1, batt_ma=2000 if k % 20 == 19 else 100)
+        if b.c.stage == ST_FLOAT:
+            break
+    assert b.c.stage == ST_FLOAT and 5.5 <= (k + 1) * 0.05 <= 5.7, k
 
 
 def test_tail_needs_the_battery_at_voltage():
@@ -188,6 +213,9 @@ def test_absorption_time_limit_counts_charging_time_only():
     assert b.c.stage == ST_BLOCKED
     assert ch.abs_ms == 300_000
     # charging again: the converter restarts from off, so the first tick back charges nothing
+    # (back inside the window by the hysteresis for 5 s first: leadacid._TEMP_BACK_MS)
+    b.run(99, batt_temp_dc=250)
+    assert b.c.stage == ST_BLOCKED
     b.run(1, batt_temp_dc=250)
     assert b.c.stage == ST_ABSORPTION and ch.abs_ms == 300_000
     b.run(5999)
@@ -271,7 +299,8 @@ def test_no_charging_outside_the_window_or_without_a_plausible_temperature(temp_
     assert c.batt_duty > 0 and c.stage == ST_BULK
     c = b.run(1, batt_temp_dc=temp_dc)
     assert c.batt_duty == 0 and c.stage == ST_BLOCKED and c.fault & fault
-    c = b.run(1, batt_temp_dc=250)
+    # back: at once from a sensor fault, after 5 s inside the window from a window fault
+    c = b.run(1 if fault == F_TEMP_SENSOR else 100, batt_temp_dc=250)
     assert c.stage == ST_BULK and c.batt_duty > 0 and not c.fault & fault
 
 
@@ -289,7 +318,7 @@ def test_blocking_keeps_the_stage_and_freezes_its_timers():
     b.run(30)  # 1.5 s of tail
     b.run(500, batt_temp_dc=470)
     assert b.c.stage == ST_BLOCKED
-    c = b.run(1, batt_temp_dc=250)  # 1.55 s
+    c = b.run(100, batt_temp_dc=250)  # 5 s back inside the window first, then 1.55 s
     assert c.stage == ST_ABSORPTION
     b.run(8)  # 1.95 s
     assert b.c.stage == ST_ABSORPTION

@@ -210,19 +210,32 @@ def test_the_ceiling_outside_the_window_is_the_ceiling_at_its_edge(stage):
 
 
 def test_charging_resumes_only_a_degree_inside_the_window():
-    """Invariant (leadacid.py _TEMP_HYST_DC): after leaving the charging window, charging
-    resumes only 1.0 C back inside it, so a noisy sensor at the edge does not switch the
-    charger (and the load on the drive) on and off every tick."""
+    """Invariant (leadacid.py _TEMP_HYST_DC, _TEMP_HYST_LSB, _TEMP_BACK_MS): after leaving the
+    charging window, charging resumes only 1.0 C (or 3 LSB of the sensor, if more) back inside
+    it, held there for 5 s, so a noisy sensor at the edge does not switch the charger (and the
+    load on the drive) on and off every tick."""
     p = build(doc_with())
     ch = LeadAcidCharger(p)
     m = Measurements()
     m.bus_mv, m.batt_mv, m.batt_ma = 15000, 12800, 500
-    for t_dc, blocked in ((250, False), (p.temp_max_dc + 1, True), (p.temp_max_dc - 5, True),
-                          (p.temp_max_dc - 10, False), (p.temp_min_dc - 1, True),
-                          (p.temp_min_dc + 9, True), (p.temp_min_dc + 10, False)):
+    for t_dc, n, blocked in ((250, 1, False), (p.temp_max_dc + 1, 1, True),
+                             (p.temp_max_dc - 5, 200, True), (p.temp_max_dc - 10, 99, True),
+                             (p.temp_max_dc - 10, 1, False), (p.temp_min_dc - 1, 1, True),
+                             (p.temp_min_dc + 9, 200, True), (p.temp_min_dc + 10, 99, True),
+                             (p.temp_min_dc + 9, 1, True), (p.temp_min_dc + 10, 99, True),
+                             (p.temp_min_dc + 10, 1, False)):
         m.batt_temp_dc = t_dc
-        ch.update(m, 50, 9000)
+        for _ in range(n):
+            ch.update(m, 50, 9000)
         assert bool(ch.fault & F_TEMP_WINDOW) == blocked == bool(ch.blocked), t_dc
+    p = build(doc_with(sensors__temp_lsb_c=0.5))  # 3 LSB = 1.5 C
+    ch = LeadAcidCharger(p)
+    for t_dc, n, blocked in ((p.temp_min_dc - 1, 1, True), (p.temp_min_dc + 14, 200, True),
+                             (p.temp_min_dc + 15, 99, True), (p.temp_min_dc + 15, 1, False)):
+        m.batt_temp_dc = t_dc
+        for _ in range(n):
+            ch.update(m, 50, 9000)
+        assert bool(ch.blocked) == blocked, t_dc
 
 
 # --- supercap: the regulator's target ------------------------------------------------------
@@ -717,9 +730,9 @@ def test_once_resumed_the_window_edges_are_inside_again():
     inside"): once charging has resumed, the window is the window again: its edges are inside
     (docs/profile.md charge_temp_max_c), no hysteresis left over."""
     p, ch, m = charger()
-    for t_dc, blocked in ((p.temp_max_dc + 1, True), (p.temp_max_dc - 10, False),
-                          (p.temp_max_dc, False), (p.temp_min_dc, False)):
-        tick(ch, m, 50, batt_mv=12800, batt_ma=500, batt_temp_dc=t_dc)
+    for t_dc, n, blocked in ((p.temp_max_dc + 1, 1, True), (p.temp_max_dc - 10, 100, False),
+                             (p.temp_max_dc, 1, False), (p.temp_min_dc, 1, False)):
+        tick(ch, m, 50, n, batt_mv=12800, batt_ma=500, batt_temp_dc=t_dc)
         assert bool(ch.blocked) == blocked, t_dc
 
 
@@ -862,15 +875,25 @@ def test_the_hold_restarts_from_zero_when_the_bus_comes_back_over_recovery():
 
 
 def test_the_soft_zone_dump_is_in_proportion_from_the_first_mv():
-    """Invariant (docs/profile.md ovp_recover_v, DEVELOPERS.md): between recovery and the trip
-    the dump load comes in in proportion to the bus over recovery (none at recovery, full at
-    the trip), at once: 1 mV over recovery already asks for its share of a 3 V zone."""
+    """Invariant (docs/profile.md ovp_recover_v, DEVELOPERS.md): on a steady bus the dump load
+    comes in in proportion over the zone's top eighth (none at its bottom, full at the trip),
+    at once: 1 mV into it already asks for its share; on a bus running up (more than 1/64 of
+    itself in a period) the whole zone reads where twice that rise would take it."""
     p = build(doc_with())  # recovery 21 V, trip 24 V
+    top_mv = (p.ovp_trip_mv - p.ovp_recover_mv) >> 3
+    for over_mv in (0, 1, top_mv // 2, top_mv - 1):
+        g = OverVoltGuard(p)
+        g.update(p.ovp_trip_mv - top_mv + over_mv, 50, 0, 0)
+        assert g.dump == over_mv * DUTY_MAX // top_mv and g.tripped == 0
     span_mv = p.ovp_trip_mv - p.ovp_recover_mv
     for over_mv in (0, 1, span_mv // 2, span_mv - 1):
         g = OverVoltGuard(p)
-        g.update(p.ovp_recover_mv + over_mv, 50, 0, 0)
-        assert g.dump == over_mv * DUTY_MAX // span_mv and g.tripped == 0
+        bus_mv = p.ovp_recover_mv - 1000
+        g.update(bus_mv, 50, 0, 0)
+        rise_mv = (over_mv + 1000) // 3  # bus + 2 x rise = recovery + over (to 1 mV)
+        g.update(bus_mv + rise_mv, 50, 50, 0)
+        ahead = bus_mv + 3 * rise_mv - p.ovp_recover_mv
+        assert g.dump == max(0, ahead) * DUTY_MAX // span_mv and g.tripped == 0
 
 
 # --- buckloop ------------------------------------------------------------------------------------

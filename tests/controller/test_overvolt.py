@@ -158,9 +158,10 @@ def test_trips_one_full_clock_period_old_do_not_count():
 
 
 def test_on_a_rising_bus_the_soft_zone_reads_twice_the_rise_ahead():
-    """Invariant (overvolt.py, soft zone): the zone's dump is in proportion to where the bus
-    would be with twice the last period's rise added (recovery 21 V: none; trip 24 V: full);
-    on a steady or falling bus, to the bus itself."""
+    """Invariant (overvolt.py, soft zone): on a bus running up (more than 1/64 of itself in a
+    period) the zone's dump is in proportion to where the bus would be with twice the last
+    period's rise added (recovery 21 V: none; trip 24 V: full); on a steady, slowly rising or
+    falling bus, to the bus itself over the zone's top eighth only (23.625 V: none)."""
     g = Guard()
     g.step(18000)
     assert g.step(18000).dump == 0  # steady, under recovery
@@ -168,11 +169,17 @@ def test_on_a_rising_bus_the_soft_zone_reads_twice_the_rise_ahead():
     assert g.step(20000).dump == 10000
     g = Guard()
     g.step(20000)
-    # 20 -> 21.5 V: 24.5 V ahead: full; the same 21.5 V steady reads a sixth of the zone
+    # 20 -> 21.5 V: 24.5 V ahead: full; the same 21.5 V steady asks for nothing
     assert g.step(21500).dump == 10000
     g = Guard()
     g.step(21500)
-    assert g.step(21500).dump == (500 * 10000) // 3000
+    assert g.step(21500).dump == 0
+    g = Guard()
+    g.step(23500)
+    assert g.step(23800).dump == (175 * 10000) // 375  # rose 300 mV < 23.8 V / 64: steady
+    g = Guard()
+    g.step(23000)
+    assert g.step(23800).dump == 10000  # rose 800 mV: running up, 25.4 V ahead
 
 
 def test_regression_a_crank_freed_of_its_loads_is_caught_in_the_soft_zone():
