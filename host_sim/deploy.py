@@ -31,6 +31,7 @@ BOARD_SOURCES = ("boards/__init__.py", "boards/firmware.py", "boards/hal.py",
                  "boards/hal_machine.py", "boards/load.py", "boards/main.py")
 _TARGET = "boot_target.txt"
 _READ_TIMEOUT_S = 1.0
+_BREAK_WAIT_S = 0.3  # a firmware pass takes a few ms; a slow board prints a traceback
 
 _RM = """import os
 def _rm(p):
@@ -227,6 +228,12 @@ def connect(port, timeout_s=10.0):
     except (TransportError, OSError) as e:
         raise UserError("port %s: cannot open (%s)" % (port, e))
     try:
+        # the firmware has the interrupt character off on the REPL's channel: a BREAK frame
+        # stops it first (harmless to a board at a plain REPL), then mpremote's Ctrl-C works
+        from host_sim.seriallink import break_wire
+        t.serial.write(break_wire() + b"\x03")
+        t.serial.flush()
+        time.sleep(_BREAK_WAIT_S)
         t.enter_raw_repl(soft_reset=True, timeout_overall=timeout_s)
     except (TransportError, OSError) as e:
         t.close()
@@ -263,6 +270,36 @@ def _start(t):
     t.serial.write(b"\x04")  # soft reset from the friendly REPL: boot runs main.py
     t.serial.flush()
     time.sleep(0.05)
+
+
+def stop(port, timeout_s=3.0):
+    """Stop the firmware and leave the board at its REPL, so that plain mpremote (or a
+    terminal) can use it: the firmware turns the interrupt character off while its link runs
+    on the REPL's channel, and a BREAK frame is the way in (docs/link.md). Returns True once
+    a REPL prompt was seen."""
+    import serial
+    from host_sim.seriallink import break_wire
+    if "://" not in port and not os.path.exists(port):
+        raise UserError("port %s: no such device" % port)
+    try:
+        ser = serial.serial_for_url(port, baudrate=115200, timeout=0.1)
+    except (serial.SerialException, OSError, ValueError) as e:
+        raise UserError("port %s: cannot open (%s)" % (port, e))
+    try:
+        ser.write(break_wire() + b"\x03")
+        ser.flush()
+        seen = b""
+        deadline = time.monotonic() + timeout_s
+        while time.monotonic() < deadline:
+            seen = (seen + ser.read(256))[-64:]
+            if seen.endswith(b">>> ") or seen.endswith(b"\n>"):
+                return True
+            if not seen.endswith(b">>> "):
+                ser.write(b"\r")  # ask for a fresh prompt
+                time.sleep(0.1)
+        return False
+    finally:
+        ser.close()
 
 
 def restart(port, timeout_s=10.0):
