@@ -95,6 +95,16 @@ def cmd_board_restart(args):
     return 0
 
 
+def cmd_board_stop(args):
+    from host_sim import deploy
+    if not deploy.stop(args.port, timeout_s=args.timeout):
+        raise UserError("port %s: no REPL prompt within %.0f s after the BREAK frame (is a "
+                        "MicroPython board on it?)" % (args.port, args.timeout))
+    print("stopped the firmware on %s: the REPL is free (mpremote, a terminal); "
+          "`spinrail board restart` starts it again" % args.port)
+    return 0
+
+
 def cmd_monitor(args):
     from host_sim.monitor import monitor, parse_feed
     feed = parse_feed(args.feed) if args.feed is not None else None
@@ -146,6 +156,16 @@ def register(sub):
     br.add_argument("--port", required=True, help="serial port or pyserial URL")
     br.add_argument("--timeout", type=float, default=10.0, help="seconds to wait for the board")
     br.set_defaults(func=cmd_board_restart)
+
+    bp = bs.add_parser("stop", help="stop the firmware and leave the REPL free",
+                       description="Send the link's BREAK frame: the firmware (which turns "
+                       "Ctrl-C off while its link runs on the REPL's channel) leaves its loop "
+                       "with storage and USB off and the dump load on, and the board waits at "
+                       "its REPL for mpremote or a terminal. flash and restart do this "
+                       "themselves.")
+    bp.add_argument("--port", required=True, help="serial port or pyserial URL")
+    bp.add_argument("--timeout", type=float, default=3.0, help="seconds to wait for the prompt")
+    bp.set_defaults(func=cmd_board_stop)
 
     m = sub.add_parser("monitor", help="live telemetry from a board",
                        description="Print telemetry frames as they arrive; optionally write "
