@@ -66,7 +66,14 @@ def _kbd_intr(ch):
 
 def run(slot=".", stream=None):
     import gc
-    fw = build(slot, stream)
+    try:
+        fw = build(slot, stream)
+    except Exception as e:
+        from boards import failsafe  # only now: its code costs no RAM in a good boot
+        failsafe.startup_failed(slot, e)
+        if not failsafe.fall_back(slot):
+            raise
+        return
     gc.collect()
     # On the REPL's channel a stray 0x03 would be Ctrl-C and stop the charger: turn the
     # interrupt character off while the loop runs; the host breaks in with a BREAK frame

@@ -15,7 +15,7 @@ def _err(msg):
 def cmd_flash(args):
     from host_sim import deploy
     r = deploy.flash(args.port, args.board, args.profile, mode=args.mode, timeout_s=args.timeout,
-                     start=not args.no_start, log=None if args.quiet else (lambda m: _err("flash: " + m)))
+                     start=not args.no_start, check=args.check, log=None if args.quiet else (lambda m: _err("flash: " + m)))
     print("flashed %s on %s: slot %s (was %s), mode %s, %d files, %d bytes, %.1f s" % (
         r.board, r.port, r.slot, r.previous or "empty", r.mode, r.files, r.bytes, r.seconds))
     print("firmware sha256 %s" % r.fw_sha256)

@@ -27,8 +27,8 @@ from host_sim.errors import UserError
 
 SLOTS = ("sr_a", "sr_b")
 STUB = ROOT / "boards" / "stub_main.py"
-BOARD_SOURCES = ("boards/__init__.py", "boards/firmware.py", "boards/hal.py",
-                 "boards/hal_machine.py", "boards/load.py", "boards/main.py")
+BOARD_SOURCES = ("boards/__init__.py", "boards/failsafe.py", "boards/firmware.py",
+                 "boards/hal.py", "boards/hal_machine.py", "boards/load.py", "boards/main.py")
 _TARGET = "boot_target.txt"
 _READ_TIMEOUT_S = 1.0
 _BREAK_WAIT_S = 0.3  # a firmware pass takes a few ms; a slow board prints a traceback
@@ -71,6 +71,19 @@ _READ_TARGET = """try:
         print(repr(f.read().strip()))
 except OSError:
     print(repr(''))
+"""
+
+_TRIAL = """import os
+with open('boot_trial.new', 'w') as f:
+    f.write(%r)
+os.rename('boot_trial.new', 'boot_trial.txt')
+"""
+
+_READ_LOG = """try:
+    with open(%r) as f:
+        print(f.read(600))
+except OSError:
+    pass
 """
 
 _SWITCH = """import os
@@ -160,6 +173,17 @@ def check_pair(board, prof, mode):
                                     board.path, top_mv / 1000, prof.ovp_trip_mv / 1000))
 
 
+HEAP_FLOOR_KB = 48  # the firmware's heap floor (docs/boards.md, tests/link/test_heap_floor.py)
+
+
+def profile_budget(heap_kb):
+    """Largest profile (canonical bytes) a board with heap_kb loads with room to spare.
+    Measured on the unix port (profile.load from source, then the loop's modules): about 2
+    bytes of heap per profile byte beyond a fixed part (85 KB loaded in a 192 KiB heap,
+    53 KB in 128 KiB); this allows half of that beyond the firmware's floor."""
+    return max(0, heap_kb - HEAP_FLOOR_KB) * 1024 // 4
+
+
 def build_bundle(board_arg, profile_arg=None, mode=None, workdir=None, log=None):
     """Validate and compile. Raises UserError before anything touches the board."""
     try:
@@ -194,6 +218,11 @@ def build_bundle(board_arg, profile_arg=None, mode=None, workdir=None, log=None)
             shutil.rmtree(work, ignore_errors=True)
     hw = dict(board.hw, mode=mode)
     prof_bytes = canonical_profile(prof_path)
+    budget = profile_budget(board.heap_kb)
+    if len(prof_bytes) > budget:
+        raise UserError("%s: the profile is %d bytes as written to the board; a board with "
+                        "heap_kb = %d loads at most %d (docs/boards.md, Heap): shorten its notes; "
+                        "nothing copied" % (prof_path, len(prof_bytes), board.heap_kb, budget))
     files.append(("hw.json", json.dumps(hw, sort_keys=True).encode()))
     files.append(("board.json", Path(board.path).read_bytes()))
     files.append(("profile.json", prof_bytes))
@@ -316,9 +345,47 @@ class FlashResult:
         self.__dict__.update(kw)
 
 
+def _switch(t, slot):
+    _exec(t, _SWITCH % (slot, _TARGET), "switching the boot target")
+    if active_slot(t) != slot:
+        raise UserError("boot_target.txt did not switch to %s" % slot)
+
+
+def _confirm(port, slot, old, b, timeout_s, say):
+    """After the trial boot: HELLO with the new hashes makes the slot permanent; anything
+    else rolls back to the previous slot (the trial file is already gone from the board)."""
+    from host_sim.seriallink import SerialLink
+    fw16 = b.manifest["fw_sha256"][:16]
+    prof16 = b.manifest["profile_sha256"][:16]
+    why = None
+    try:
+        with SerialLink(port) as link:
+            h = link.hello(timeout_s=min(timeout_s, 5.0))
+        if (h.fw_hash, h.profile_hash) != (fw16, prof16):
+            why = "it answered with firmware %s / profile %s" % (h.fw_hash, h.profile_hash)
+    except UserError as e:
+        why = "no answer to HELLO (%s)" % e
+    t = connect(port, timeout_s)
+    try:
+        if why is None:
+            _switch(t, slot)
+            say("the new firmware answered HELLO: boot target switched to %s" % slot)
+            _start(t)
+            return
+        log = _exec(t, _READ_LOG % (slot + "/fault.log"), "reading the trial's fault.log")
+        _start(t)  # boots the previous slot
+    finally:
+        t.close()
+    log = " ".join(log.split())[-300:]
+    raise UserError("the new version in %s did not start on this board: %s%s; rolled back, the "
+                    "board boots %s" % (slot, why, ("; its fault.log: " + log) if log else "",
+                                        old or "nothing"))
+
+
 def flash(port, board_arg, profile_arg=None, mode=None, timeout_s=10.0, chunk=1024, start=True,
-          log=None, before_switch=None):
-    """Flash a board. before_switch (tests): called after verification, before the switch."""
+          log=None, before_switch=None, check=True):
+    """Flash a board. before_switch (tests): called after verification, before the switch.
+    start and check: a trial boot, confirmed by HELLO (start only: switch, then start)."""
     say = log or (lambda msg: None)
     t0 = time.monotonic()
     b = build_bundle(board_arg, profile_arg, mode, log=say)
@@ -327,6 +394,8 @@ def flash(port, board_arg, profile_arg=None, mode=None, timeout_s=10.0, chunk=10
         old = active_slot(t)
         slot = SLOTS[1] if old == SLOTS[0] else SLOTS[0]
         say("active slot %s; writing %s" % (old or "(none)", slot))
+        # a trial left by an interrupted flash must not name the slot about to be rewritten
+        _exec(t, _RM % "boot_trial.txt", "removing a stale trial")
         _exec(t, _RM % slot, "clearing the inactive slot")
         dirs = sorted({slot + "/" + os.path.dirname(rel) for rel, _ in b.files if "/" in rel})
         for d in [slot] + dirs:
@@ -356,17 +425,25 @@ def flash(port, board_arg, profile_arg=None, mode=None, timeout_s=10.0, chunk=10
             say("boot stub installed as main.py")
         if before_switch is not None:
             before_switch()
-        _exec(t, _SWITCH % (slot, _TARGET), "switching the boot target")
-        if active_slot(t) != slot:
-            raise UserError("boot_target.txt did not switch to %s" % slot)
-        say("boot target switched to %s" % slot)
-        if start:
+        trial = start and check
+        if trial:
+            # the new slot boots once; it becomes the boot target only after it answered
+            _exec(t, _TRIAL % slot, "naming the trial slot")
+            say("trial boot of %s (the board falls back to %s unless it answers)"
+                % (slot, old or "nothing"))
             _start(t)
+        else:
+            _switch(t, slot)
+            say("boot target switched to %s" % slot)
+            if start:
+                _start(t)
     finally:
         try:
             t.close()
         except Exception:
             pass
+    if trial:
+        _confirm(port, slot, old, b, timeout_s, say)
     return FlashResult(board=b.board.name, port=port, slot=slot, previous=old, mode=b.mode,
                        files=len(b.files), bytes=sum(len(d) for _, d in b.files),
                        fw_sha256=b.manifest["fw_sha256"],

@@ -244,3 +244,59 @@ def test_noise_over_the_pty_is_dropped_and_counted(flashed):
     dropped = sum(after[k] - before[k] for k in ("rx_crc", "rx_malformed", "rx_oversized"))
     assert dropped >= 20
     assert after["exceptions"] == 0
+
+
+def big_notes_profile(tmp_path, n):
+    with open(ROOT / "controller" / "default_profile.json") as f:
+        doc = json.load(f)
+    doc["notes"] = "n" * n
+    p = tmp_path / ("notes_%d.json" % n)
+    p.write_text(json.dumps(doc))
+    return str(p)
+
+
+def test_profile_too_big_for_the_heap_is_refused_before_copying(flashed, tmp_path):
+    # issue 14, finding 2: a 300 KB notes field validated, flashed, and the board never booted
+    vb, port, r = flashed
+    before = {p: sha(p) for p in Path(vb.folder).rglob("*") if p.is_file()}
+    with pytest.raises(UserError, match=r"heap_kb = 192 loads at most 36864.*nothing copied"):
+        deploy.flash(port, "virtual", profile_arg=big_notes_profile(tmp_path, 300000))
+    assert {p: sha(p) for p in Path(vb.folder).rglob("*") if p.is_file()} == before
+
+
+def test_a_trial_boot_that_fails_rolls_back_by_itself(micropython, board_dir, tmp_path):
+    # the board file claims 192 KiB, the board has 64: a 20 KB profile passes the host's size
+    # check and runs out of heap on the board, as the 300 KB one did
+    from host_sim.virtualboard import VirtualBoard
+    with VirtualBoard(str(board_dir), exe=micropython, heap_kb=64) as vb:
+        first = deploy.flash(vb.port, "virtual")
+        fs = Path(vb.folder)
+        assert (fs / "boot_target.txt").read_text().strip() == "sr_a"
+        with pytest.raises(UserError, match=r"did not start on this board.*MemoryError.*"
+                                            r"rolled back, the board boots sr_a"):
+            deploy.flash(vb.port, "virtual", profile_arg=big_notes_profile(tmp_path, 20000))
+        assert (fs / "boot_target.txt").read_text().strip() == "sr_a"
+        assert not (fs / "boot_trial.txt").exists()
+        assert "start-up failed" in (fs / "sr_b" / "fault.log").read_text()
+        assert hello(vb.port).profile_hash == first.profile_sha256[:16]
+        deploy.restart(vb.port)  # and every later boot runs the confirmed slot
+        assert hello(vb.port).profile_hash == first.profile_sha256[:16]
+        again = deploy.flash(vb.port, "virtual")  # a good version confirms as before
+        assert again.slot == "sr_b" and (fs / "boot_target.txt").read_text().strip() == "sr_b"
+
+
+def test_a_trial_that_is_never_confirmed_is_not_booted_again(flashed, other_profile):
+    vb, port, r = flashed
+    fs = Path(vb.folder)
+    confirmed = (fs / "boot_target.txt").read_text().strip()
+    # a flash killed right after the trial boot: the trial file is gone, nothing switched
+    deploy.flash(port, "virtual", profile_arg=other_profile, check=False, start=False)
+    (fs / "boot_target.txt").write_text(confirmed)  # undo that direct switch: as if trial
+    other = "sr_b" if confirmed == "sr_a" else "sr_a"
+    (fs / "boot_trial.txt").write_text(other)
+    deploy.restart(port)  # the trial boots once ...
+    trial = hello(port).profile_hash
+    assert not (fs / "boot_trial.txt").exists()
+    deploy.restart(port)  # ... and the next boot is the confirmed slot again
+    assert hello(port).profile_hash != trial == json.loads(
+        (fs / other / "manifest.json").read_text())["profile_sha256"][:16]
