@@ -44,9 +44,25 @@ def profile_path(arg):
     return str(p)
 
 
+def read_profile(path):
+    """(document, Profile) of a profile file, read with the strict JSON loader (duplicate
+    keys, deep nesting, huge integers refused). Raises ConfigError naming the file."""
+    from host_sim.fileio import JsonError, load_json
+    try:
+        doc = load_json(path)
+    except OSError as e:
+        raise ConfigError("%s: cannot read profile (%s)" % (path, e.strerror or e))
+    except JsonError as e:
+        raise ConfigError(str(e))
+    try:
+        return doc, _profile.from_dict(doc)
+    except ConfigError as e:
+        raise ConfigError("%s: %s" % (path, e))
+
+
 def load_profile(arg):
     path = profile_path(arg)
     try:
-        return _profile.load(path), path
+        return read_profile(path)[1], path
     except ConfigError as e:
         raise UserError(str(e))

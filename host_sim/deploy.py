@@ -22,7 +22,7 @@ from pathlib import Path
 from boards import board as _board
 from controller import profile as _profile
 from controller.compat import ConfigError
-from host_sim.common import ROOT, profile_path
+from host_sim.common import ROOT, profile_path, read_profile
 from host_sim.errors import UserError
 
 SLOTS = ("sr_a", "sr_b")
@@ -115,9 +115,8 @@ def firmware_hash(sources=None):
 
 def canonical_profile(path):
     """The profile as written to the board: the parsed document in canonical JSON."""
-    with open(path) as f:
-        doc = json.load(f)
-    return json.dumps(doc, sort_keys=True, separators=(",", ":")).encode()
+    from host_sim.fileio import load_json
+    return json.dumps(load_json(path), sort_keys=True, separators=(",", ":")).encode()
 
 
 def find_mpy_cross():
@@ -192,7 +191,7 @@ def build_bundle(board_arg, profile_arg=None, mode=None, workdir=None, log=None)
         raise UserError(str(e))
     prof_path = profile_path(profile_arg)
     try:
-        prof = _profile.load(prof_path)
+        prof = read_profile(prof_path)[1]
     except ConfigError as e:
         raise UserError("profile failed validation, nothing copied: %s" % e)
     mode = mode or board.mode

@@ -12,6 +12,8 @@ from pathlib import Path
 from controller import profile as _profile
 from controller.compat import ConfigError
 from controller.profile_fields import CHEMISTRIES, SCHEMES
+from host_sim.common import read_profile
+from host_sim.fileio import JsonError, load_json
 
 HERE = Path(__file__).resolve().parent
 SCEN_DIR = HERE / "scenarios"
@@ -537,9 +539,7 @@ def _load_profile(v, p, base_dir):
                 v.err("profile", p, "a built-in profile (%s) or a path" % ", ".join(names))
         else:
             path = os.path.join(base_dir or ".", p)
-        with open(path) as fh:
-            doc = json.load(fh)
-        return doc, _profile.load(path)
+        return read_profile(path)
     except ConfigError as e:
         raise ScenarioError("%s: profile: %s" % (v.src, e))
     except OSError as e:
@@ -636,12 +636,11 @@ def load_scenario(name_or_path):
             raise ScenarioError("%s: no such scenario file or built-in name; built-ins: %s"
                                 % (s, ", ".join(builtin_names())))
     try:
-        with open(path) as fh:
-            doc = json.load(fh)
+        doc = load_json(path)
     except OSError as e:
-        raise ScenarioError("%s: cannot read scenario (%s)" % (path, e))
-    except ValueError as e:
-        raise ScenarioError("%s: not valid JSON (%s)" % (path, e))
+        raise ScenarioError("%s: cannot read scenario (%s)" % (path, e.strerror or e))
+    except JsonError as e:
+        raise ScenarioError(str(e))
     return validate(doc, path, os.path.dirname(os.path.abspath(path)))
 
 

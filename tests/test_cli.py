@@ -69,3 +69,100 @@ def test_limits_json_keys_and_a_worked_example(tmp_path, capsys):
               "ovp_hold_ms", "usb_vbus_min_mv", "usb_vbus_max_mv", "period_ms"):
         assert isinstance(d[k], int), k
     assert d["float_mv"] == 13620
+
+
+# -- issue 14: every input refused alike on both interpreters, one line, exit 2 ---------------
+HEAD9 = "t_ms,bus_mv,batt_mv,batt_ma,batt_temp_dc,cap_mv,usb_vbus_mv,usb_dp_mv,usb_dm_mv"
+BAD_VECTORS = [
+    (HEAD9 + "\n0,15000,%d,0,250,10000,0,0,0\n" % (2 ** 64 + 12400),
+     "line 2: column batt_mv = 18446744073709564016: allowed -536870912 to 536870911"),
+    (HEAD9 + ",eq_req\n0,15000,12400,0,250,10000,0,0,0,5\n",
+     "line 2: column eq_req = 5: allowed 0 to 1"),
+    (HEAD9 + ",bus_mv\n0,15000,12400,0,250,10000,0,0,0,1\n", "line 1: column bus_mv appears twice"),
+    (HEAD9 + "\n0,15000,12400,0,250,10000,0,0,0,7\n", "line 2: 10 fields, header has 9"),
+    (HEAD9 + "\r0,15000,12400,0,250,10000,0,0,0\r", "line 1: CR-only line ends"),
+    (HEAD9 + "\n0,15000,1_2400,0,250,10000,0,0,0\n", "column batt_mv = '1_2400' is not an integer"),
+    (HEAD9 + "\n-1,15000,12400,0,250,10000,0,0,0\n", "column t_ms = -1: allowed 0 to 2147483647"),
+]
+
+
+@pytest.mark.parametrize("text, needle", BAD_VECTORS)
+def test_bad_vectors_are_refused_alike_on_both_targets(tmp_path, capsys, micropython, text,
+                                                       needle):
+    from host_sim import vectors
+    from host_sim.errors import UserError
+    src = tmp_path / "in.csv"
+    src.write_bytes(text.encode())
+    for target in ("cpython", "micropython"):
+        rc, _, err = run(["vectors", "run", str(src), "--target", target,
+                          "--out", str(tmp_path / "o.csv")], capsys)
+        assert rc == 2 and needle in err and err.count("\n") == 1, (target, err)
+    # the MicroPython side on its own (no host check first) gives the same one line
+    with pytest.raises(UserError) as e:
+        vectors.run_micropython(None, str(src), str(tmp_path / "o.csv"))
+    assert needle in str(e.value) and "Traceback" not in str(e.value)
+    assert sorted(os.listdir(tmp_path)) == ["in.csv"]
+
+
+def test_a_bom_and_crlf_line_ends_are_accepted_on_both_targets(tmp_path, capsys, micropython):
+    plain = DEMO_VECTORS.read_text()
+    src = tmp_path / "bom.csv"
+    src.write_bytes(b"\xef\xbb\xbf" + plain.replace("\n", "\r\n").encode())
+    outs = []
+    for target in ("cpython", "micropython"):
+        out = tmp_path / (target + ".csv")
+        assert run(["vectors", "run", str(src), "--target", target, "--out", str(out)],
+                   capsys)[0] == 0
+        outs.append(out.read_bytes())
+    ref = tmp_path / "ref.csv"
+    assert run(["vectors", "run", str(DEMO_VECTORS), "--out", str(ref)], capsys)[0] == 0
+    assert outs[0] == outs[1] == ref.read_bytes()
+
+
+def test_non_utf8_vectors_and_bad_out_paths_are_one_line_errors(tmp_path, capsys):
+    src = tmp_path / "in.csv"
+    src.write_bytes(HEAD9.encode() + b"\n0,1,2,3,4,5,6,7,\xff\n")
+    rc, _, err = run(["vectors", "run", str(src), "--out", str(tmp_path / "o.csv")], capsys)
+    assert rc == 2 and "not UTF-8 text (byte 0xff" in err
+    good = tmp_path / "good.csv"
+    good.write_text(DEMO_VECTORS.read_text())
+    before = good.read_bytes()
+    for out, needle in ((tmp_path, "is a folder"), (good, "is the input file"),
+                        (tmp_path / "nope" / "o.csv", "does not exist")):
+        rc, _, err = run(["vectors", "run", str(good), "--out", str(out)], capsys)
+        assert rc == 2 and needle in err and err.count("\n") == 1, err
+    assert good.read_bytes() == before
+
+
+def test_an_unforeseen_error_is_an_internal_error_with_exit_4(tmp_path, capsys, monkeypatch):
+    from host_sim import vectors
+    monkeypatch.setenv("SPINRAIL_LOG_DIR", str(tmp_path / "logs"))
+
+    def broken(*a):
+        raise ZeroDivisionError("a bug")
+
+    monkeypatch.setattr(vectors, "run_cpython", broken)
+    rc, out, err = run(["vectors", "run", "--out", str(tmp_path / "o.csv")], capsys)
+    assert rc == 4 and err.startswith("spinrail: internal error: ZeroDivisionError: a bug")
+    assert "Traceback" not in err and err.count("\n") == 1
+    logs = list((tmp_path / "logs").iterdir())
+    assert len(logs) == 1 and str(logs[0]) in err
+    assert "Traceback" in logs[0].read_text() and "ZeroDivisionError" in logs[0].read_text()
+
+
+@pytest.mark.parametrize("text, needle", [
+    ('{"battery": {"cells": 6, "cells": 3}}', 'duplicate key "cells"'),
+    ("[" * 5000 + "]" * 5000, "nested more than 64 levels deep"),
+    ('{"battery": {"cells": %s}}' % ("9" * 400), "has more than 30 digits"),
+])
+def test_json_traps_are_one_line_errors_in_profiles_and_scenarios(tmp_path, capsys, text,
+                                                                   needle):
+    prof = tmp_path / "p.json"
+    prof.write_text(text)
+    rc, _, err = run(["limits", "--profile", str(prof)], capsys)
+    assert rc == 2 and needle in err and str(prof) in err and err.count("\n") == 1, err
+    scen = tmp_path / "s.json"
+    scen.write_text(text.replace('"battery"', '"drive"'))
+    rc, _, err = run(["simulate", str(scen), "--out", str(tmp_path / "o")], capsys)
+    assert rc == 2 and needle in err and err.count("\n") == 2, err  # the caution line, then it
+    assert not (tmp_path / "o").exists()

@@ -72,3 +72,21 @@ def test_flash_errors_exit_2_with_a_message(spinrail, capsys):
     assert "no such board file" in capsys.readouterr().err
     assert spinrail(["monitor", "--port", "/dev/null", "--feed", "volts=3"]) == 2
     assert "--feed volts: unknown measurement" in capsys.readouterr().err
+
+
+def test_duplicate_keys_are_refused_in_flash_profiles_and_board_files(spinrail, tmp_path,
+                                                                      capsys):
+    # issue 14, finding 7: duplicate keys were last-wins, and such a profile flashed
+    prof = tmp_path / "dup.json"
+    prof.write_text('{"battery": {"float_v_per_cell": 2.25, "float_v_per_cell": 2.3}}')
+    rc = spinrail(["flash", "--board", "virtual", "--port", "/dev/spinrail-none",
+                   "--profile", str(prof)])
+    err = capsys.readouterr().err
+    assert rc == 2 and 'duplicate key "float_v_per_cell"' in err and "nothing copied" in err
+    from boards import board
+    doc = (board.BOARDS_DIR / "virtual.json").read_text()
+    bad = tmp_path / "b.json"
+    bad.write_text(doc.replace('"heap_kb"', '"name": "twice",\n  "heap_kb"', 1))
+    rc = spinrail(["board", "check", str(bad)])
+    err = capsys.readouterr().err
+    assert rc == 2 and 'duplicate key "name"' in err and str(bad) in err
