@@ -166,3 +166,106 @@ def test_json_traps_are_one_line_errors_in_profiles_and_scenarios(tmp_path, caps
     rc, _, err = run(["simulate", str(scen), "--out", str(tmp_path / "o")], capsys)
     assert rc == 2 and needle in err and err.count("\n") == 2, err  # the caution line, then it
     assert not (tmp_path / "o").exists()
+
+
+# -- issue 14: output sets whole, --out checked first, plant failures not blamed ---------------
+SHORT = {"drive": {"kind": "crank"}, "duration_s": 2}
+
+
+def short_scenario(tmp_path, **extra):
+    p = tmp_path / "short.json"
+    p.write_text(json.dumps(dict(SHORT, **extra)))
+    return str(p)
+
+
+def test_out_is_checked_before_the_run_and_a_second_run_is_refused(tmp_path, capsys,
+                                                                    monkeypatch):
+    from host_sim import runner
+    from host_sim.fileio import OutputSet
+    ran = []
+    monkeypatch.setattr(runner, "run", lambda *a, **k: ran.append(1))
+    scen = short_scenario(tmp_path)
+    a_file = tmp_path / "f"
+    a_file.write_text("x")
+    for out, needle in ((a_file, "exists and is not a folder"),
+                        (a_file / "sub", "cannot write there")):
+        rc, _, err = run(["simulate", scen, "--out", str(out), "--quiet"], capsys)
+        assert rc == 2 and needle in err, err
+    locked = tmp_path / "busy"
+    with OutputSet(locked):
+        rc, _, err = run(["simulate", scen, "--out", str(locked), "--quiet"], capsys)
+    assert rc == 2 and "another spinrail run is writing into this folder" in err
+    assert ran == []  # refused before any simulation
+
+
+def test_a_failed_write_keeps_the_previous_set_and_leaves_no_temporary_files(tmp_path, capsys,
+                                                                            monkeypatch):
+    import errno
+
+    from host_sim import report
+    scen = short_scenario(tmp_path)
+    out = tmp_path / "out"
+    assert run(["simulate", scen, "--out", str(out), "--quiet"], capsys)[0] == 0
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    assert sorted(before) == ["report.png", "summary.json", "timeseries.csv"]
+
+    def full(result, path):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(report, "write", full)
+    rc, _, err = run(["simulate", scen, "--out", str(out), "--quiet"], capsys)
+    assert rc == 2 and "No space left on device" in err and "keeps its previous contents" in err
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before
+    assert sorted(os.listdir(tmp_path)) == ["out", "short.json"]
+
+
+def test_a_kill_while_writing_leaves_the_old_set_and_the_next_run_tidies(tmp_path, capsys):
+    import subprocess
+    import sys
+    scen = short_scenario(tmp_path)
+    out = tmp_path / "out"
+    assert run(["simulate", scen, "--out", str(out), "--quiet"], capsys)[0] == 0
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    code = ("import os, signal; from host_sim import report, cli\n"
+            "report.write = lambda r, p: os.kill(os.getpid(), signal.SIGKILL)\n"
+            "cli.main(['simulate', %r, '--out', %r, '--quiet', '--every', '2'])" % (scen, str(out)))
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True)
+    assert proc.returncode == -9
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before  # whole, and the old one
+    assert any(n.startswith(".out.tmp-") for n in os.listdir(tmp_path))  # the killed run's
+    assert run(["simulate", scen, "--out", str(out), "--quiet"], capsys)[0] == 0
+    assert sorted(os.listdir(tmp_path)) == ["out", "short.json"]  # tidied by the next run
+
+
+def test_a_plant_that_comes_apart_is_an_error_not_a_verdict(tmp_path, capsys, monkeypatch):
+    from host_sim import runner
+    real = runner.run
+
+    def blown(sc, **kw):
+        res = real(sc, **kw)
+        res.series["bus_v"][5] = 4656.0  # what a 100,000 rpm drive once gave
+        return res
+
+    monkeypatch.setattr(runner, "run", blown)
+    out = tmp_path / "o"
+    rc, _, err = run(["simulate", short_scenario(tmp_path), "--out", str(out), "--quiet"], capsys)
+    assert rc == 4 and "failed numerically" in err and "bus_v = 4656" in err
+    assert "limit" not in err.split("CAUTION")[-1].split("spinrail:")[-1].split("failed")[0]
+    assert not out.exists() or os.listdir(out) == []
+
+
+@pytest.mark.parametrize("extra, needle", [
+    ({"drive": {"kind": "scripted", "points": [[0, 100000]]}},
+     "drive.points[0][1] = 100000.0: allowed |rpm| x gear.ratio 1 <= 20000 rpm"),
+    ({"supercap": {"v0_per_cell": 2.7}}, "a start state outside the limits"),
+    ({"bus": {"initial_v": 60}}, "a start state outside the limits"),
+    ({"profile": {"battery": {"capacity_ah": 500}}},
+     "charge_limit_a = 100.0: allowed 0.05 to 30.0 A (not written in the profile: derived"),
+    ({"drive": {"kind": "scripted", "points": [[i, 1] for i in range(100001)]}},
+     "[100001 items]"),
+])
+def test_physical_ranges_and_start_states_are_input_errors(tmp_path, capsys, extra, needle):
+    rc, _, err = run(["simulate", short_scenario(tmp_path, **extra), "--out",
+                      str(tmp_path / "o"), "--quiet"], capsys)
+    assert rc == 2 and needle in err, err
+    assert len(err) < 1000  # a 100,001-point list once gave a 1.5 MB message
