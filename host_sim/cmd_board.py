@@ -77,6 +77,8 @@ def cmd_board_virtual(args):
     def _term(signum, frame):
         raise KeyboardInterrupt
     signal.signal(signal.SIGTERM, _term)  # stop cleanly (and reap the interpreter) on kill
+    # Ctrl-C stops it even when started where SIGINT is ignored (a shell's background job)
+    signal.signal(signal.SIGINT, signal.default_int_handler)
     port = vb.start()
     print(port, flush=True)
     _err("virtual board: port %s, filesystem %s, heap %d KB, interpreter %s; Ctrl-C stops it"

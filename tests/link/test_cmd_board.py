@@ -90,3 +90,26 @@ def test_duplicate_keys_are_refused_in_flash_profiles_and_board_files(spinrail, 
     rc = spinrail(["board", "check", str(bad)])
     err = capsys.readouterr().err
     assert rc == 2 and 'duplicate key "name"' in err and str(bad) in err
+
+
+def test_board_virtual_stops_on_sigint_even_started_with_it_ignored(tmp_path):
+    # issue 14, finding 11: `board virtual` ignored SIGINT (started as a background job,
+    # which inherits SIGINT ignored)
+    import signal
+    import subprocess
+    import sys
+    import time
+    code = "import sys; from host_sim.cli import main; sys.exit(main(sys.argv[1:]))"
+    proc = subprocess.Popen(
+        [sys.executable, "-c", code, "board", "virtual", "--dir", str(tmp_path)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_IGN))
+    try:
+        assert proc.stdout.readline().startswith("/dev/")
+        time.sleep(0.3)
+        proc.send_signal(signal.SIGINT)
+        assert proc.wait(timeout=15) == 0
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
