@@ -46,8 +46,6 @@ def _num(sec, sname, key, lo, hi, default, unit, why=""):
         msg = "%s = %r: allowed %s to %s %s" % (field, v, lo, hi, unit)
         if why:
             msg += " (" + why + ")"
-        if key not in sec:  # only a default worked out from other fields can be out of range
-            msg += " (not written in the profile: derived from the other fields; write it)"
         raise ConfigError(msg)
     return v
 

@@ -57,7 +57,22 @@ def read_profile(path):
     try:
         return doc, _profile.from_dict(doc)
     except ConfigError as e:
-        raise ConfigError("%s: %s" % (path, e))
+        raise ConfigError("%s: %s" % (path, name_derived(doc, str(e))))
+
+
+def name_derived(doc, msg):
+    """A range error on a field the profile does not hold can only be a default worked out
+    from other fields (charge_limit_a is 0.2 C of capacity_ah): say so. (Host side: the
+    board's validation code stays as small as it is.)"""
+    field = msg.split(" = ", 1)[0]
+    if " = " not in msg or " " in field or not isinstance(doc, dict):
+        return msg
+    node = doc
+    for part in field.split("."):
+        if not isinstance(node, dict) or part not in node:
+            return msg + " (not written in the profile: derived from the other fields; write it)"
+        node = node[part]
+    return msg
 
 
 def load_profile(arg):

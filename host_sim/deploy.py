@@ -31,7 +31,6 @@ BOARD_SOURCES = ("boards/__init__.py", "boards/failsafe.py", "boards/firmware.py
                  "boards/hal.py", "boards/hal_machine.py", "boards/load.py", "boards/main.py")
 _TARGET = "boot_target.txt"
 _READ_TIMEOUT_S = 1.0
-_BREAK_WAIT_S = 0.3  # a firmware pass takes a few ms; a slow board prints a traceback
 
 _RM = """import os
 def _rm(p):
@@ -258,10 +257,8 @@ def connect(port, timeout_s=10.0):
     try:
         # the firmware has the interrupt character off on the REPL's channel: a BREAK frame
         # stops it first (harmless to a board at a plain REPL), then mpremote's Ctrl-C works
-        from host_sim.seriallink import break_wire
-        t.serial.write(break_wire() + b"\x03")
-        t.serial.flush()
-        time.sleep(_BREAK_WAIT_S)
+        if not _break_in(t.serial, timeout_s):
+            raise TransportError("no REPL prompt after the BREAK frame")
         t.enter_raw_repl(soft_reset=True, timeout_overall=timeout_s)
     except (TransportError, OSError) as e:
         t.close()
@@ -300,13 +297,45 @@ def _start(t):
     time.sleep(0.05)
 
 
+def _break_in(ser, timeout_s):
+    """BREAK frame and Ctrl-C until the board is at a REPL (True) within timeout_s: a prompt
+    shows (Ctrl-B asks for one, from the raw REPL too), or the line stays quiet (a running
+    firmware sends frames every period; mpremote's own wait never ends while it does). A
+    firmware that is still booting reads the frame only once its loop runs: it goes again."""
+    from host_sim.seriallink import break_wire
+    seen = b""
+    deadline = time.monotonic() + timeout_s
+    next_break = 0.0
+    quiet_since = None
+    while time.monotonic() < deadline:
+        now = time.monotonic()
+        if now >= next_break:
+            ser.write(break_wire() + b"\x03")
+            ser.flush()
+            next_break = now + 1.0
+            quiet_since = None
+        time.sleep(0.05)
+        n = ser.in_waiting
+        if n:
+            seen = (seen + ser.read(n))[-64:]
+            quiet_since = None
+            if seen.endswith((b">>> ", b"\n>")):
+                return True
+        else:
+            if quiet_since is None:
+                quiet_since = time.monotonic()
+                ser.write(b"\x02")  # Ctrl-B: the friendly REPL's banner and prompt
+            elif time.monotonic() - quiet_since > 0.6:
+                return True
+    return False
+
+
 def stop(port, timeout_s=3.0):
     """Stop the firmware and leave the board at its REPL, so that plain mpremote (or a
     terminal) can use it: the firmware turns the interrupt character off while its link runs
     on the REPL's channel, and a BREAK frame is the way in (docs/link.md). Returns True once
     a REPL prompt was seen."""
     import serial
-    from host_sim.seriallink import break_wire
     if "://" not in port and not os.path.exists(port):
         raise UserError("port %s: no such device" % port)
     try:
@@ -314,18 +343,7 @@ def stop(port, timeout_s=3.0):
     except (serial.SerialException, OSError, ValueError) as e:
         raise UserError("port %s: cannot open (%s)" % (port, e))
     try:
-        ser.write(break_wire() + b"\x03")
-        ser.flush()
-        seen = b""
-        deadline = time.monotonic() + timeout_s
-        while time.monotonic() < deadline:
-            seen = (seen + ser.read(256))[-64:]
-            if seen.endswith(b">>> ") or seen.endswith(b"\n>"):
-                return True
-            if not seen.endswith(b">>> "):
-                ser.write(b"\r")  # ask for a fresh prompt
-                time.sleep(0.1)
-        return False
+        return _break_in(ser, timeout_s)
     finally:
         ser.close()
 

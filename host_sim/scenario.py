@@ -13,7 +13,7 @@ from pathlib import Path
 from controller import profile as _profile
 from controller.compat import ConfigError
 from controller.profile_fields import CHEMISTRIES, SCHEMES
-from host_sim.common import read_profile
+from host_sim.common import name_derived, read_profile
 from host_sim.fileio import JsonError, load_json, short
 
 HERE = Path(__file__).resolve().parent
@@ -538,7 +538,10 @@ def _drive(v, d):
 def _load_profile(v, p, base_dir):
     try:
         if isinstance(p, dict):
-            return p, _profile.from_dict(p)
+            try:
+                return p, _profile.from_dict(p)
+            except ConfigError as e:
+                raise ConfigError(name_derived(p, str(e)))
         if not isinstance(p, str) or not p:
             v.err("profile", p, "a built-in name, a path or an inline object")
         if p == "default":
