@@ -118,8 +118,10 @@ def register(sub):
     f = sub.add_parser("flash", help="validate, compile and copy the firmware to a board",
                        description="Validate the profile and the board file, compile the "
                        "controller with mpy-cross, copy it into the board's inactive slot with "
-                       "mpremote, verify every file by sha256 on the board, then switch the "
-                       "boot target. An interrupted flash leaves the previous version booting.")
+                       "mpremote, verify every file by sha256 on the board, then boot it once as a "
+                       "trial: it becomes the boot target only when it answers HELLO with the "
+                       "new hashes, else the board goes back to the previous version (exit 2). "
+                       "An interrupted flash leaves the previous version booting.")
     f.add_argument("--board", required=True, help="board name (boards/NAME.json) or board file")
     f.add_argument("--port", required=True, help="serial port or pyserial URL (/dev/ttyACM0, "
                    "the path `spinrail board virtual` prints)")
@@ -130,9 +132,10 @@ def register(sub):
     f.add_argument("--timeout", type=float, default=10.0, help="seconds to wait for the board "
                    "(default: %(default)s)")
     f.add_argument("--no-start", action="store_true", help="do not soft-reset into the new "
-                   "firmware afterwards")
+                   "firmware afterwards (no trial boot: the boot target switches at once)")
     f.add_argument("--no-check", dest="check", action="store_false",
-                   help="skip the HELLO handshake that confirms the running firmware's hashes")
+                   help="skip the HELLO handshake that confirms the running firmware's hashes "
+                   "(no trial boot: the boot target switches at once)")
     f.add_argument("-q", "--quiet", action="store_true", help="no progress on stderr")
     f.set_defaults(func=cmd_flash)
 
