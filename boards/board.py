@@ -57,10 +57,12 @@ def list_boards():
 
 def load(name_or_path):
     """Read, validate and resolve a board file. Raises ConfigError naming the file."""
+    from host_sim.fileio import JsonError, load_json
     path = board_path(name_or_path)
     try:
-        with open(path) as f:
-            doc = json.load(f)
+        doc = load_json(path)  # the strict loader: duplicate keys, deep nesting refused
+    except JsonError as e:
+        raise ConfigError(str(e))
     except FileNotFoundError:
         raise ConfigError("%s: no such board file (shipped boards: %s)"
                           % (path, ", ".join(list_boards())))

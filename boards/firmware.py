@@ -11,8 +11,9 @@
 #              No MEAS for link_timeout_ms: outputs safe, F_LINK, until frames resume.
 # Any exception in a loop pass: outputs safe (dump on only if the bus reads at or above the
 # trip), F_FIRMWARE latched (until reset_req) and recorded in fault.log, and the loop goes on,
-# so the supervisor's guards keep running. KeyboardInterrupt (Ctrl-C from mpremote) leaves the
-# loop with storage and USB off and the dump load on: nothing watches the bus any more.
+# so the supervisor's guards keep running. KeyboardInterrupt (a BREAK frame from the host, or
+# Ctrl-C where the link has its own UART) leaves the loop with storage and USB off and the
+# dump load on: nothing watches the bus any more.
 import time
 
 from controller import link as L
@@ -73,6 +74,14 @@ class Firmware:
                 self._send(link.cmd_frame(self.sup.c, self.sup.ticks, link.step_ms))
             elif ev == L.EV_MEAS:
                 self.lockstep = 0
+            elif ev == L.EV_HOLD_STEP:
+                # lock-step while the link fault holds (not enough fresh frames yet): answer
+                # with the safe state, do not tick
+                self.lockstep = 1
+                self._hold_safe()
+                self._send(link.cmd_frame(self.sup.c, self.sup.ticks, link.step_ms))
+            elif ev == L.EV_BREAK:
+                raise KeyboardInterrupt  # the host breaks in (run() leaves the outputs safe)
         if ticks_diff(now_ms, self.next_ms) >= 0:
             self._schedule(now_ms)
             if not self.link_mode:

@@ -7,8 +7,10 @@
 
 class StdioStream:
     """The REPL's own channel as the link: USB-CDC on the Pico, UART0 behind the USB bridge on
-    ESP32 devkits, the pty of the virtual board. Ctrl-C stays enabled (the framing keeps 0x03
-    off the wire)."""
+    ESP32 devkits, the pty of the virtual board. boards/main.py turns the interrupt character
+    off while the loop runs on it (shares_repl): a host breaks in with a BREAK frame."""
+
+    shares_repl = 1
 
     def __init__(self):
         import select

@@ -56,13 +56,37 @@ def _build(slot, stream):
     return Firmware(p, hal, stream, mode, ident, timeout_ms, telemetry_ms, slot + "/fault.log")
 
 
+def _kbd_intr(ch):
+    try:
+        import micropython
+        micropython.kbd_intr(ch)
+    except (ImportError, AttributeError):
+        pass  # CPython (tests)
+
+
 def run(slot=".", stream=None):
     import gc
-    fw = build(slot, stream)
+    try:
+        fw = build(slot, stream)
+    except Exception as e:
+        from boards import failsafe  # only now: its code costs no RAM in a good boot
+        failsafe.startup_failed(slot, e)
+        if not failsafe.fall_back(slot):
+            raise
+        return
     gc.collect()
+    # On the REPL's channel a stray 0x03 would be Ctrl-C and stop the charger: turn the
+    # interrupt character off while the loop runs; the host breaks in with a BREAK frame
+    # (docs/link.md). A separate UART link leaves Ctrl-C to the REPL.
+    shared = getattr(fw.stream, "shares_repl", 0)
+    if shared:
+        _kbd_intr(-1)
     try:
         fw.loop()
     except KeyboardInterrupt:
         fw.hal.safe(True)
         fw.hal.reboot_to_repl()
         raise
+    finally:
+        if shared:
+            _kbd_intr(3)

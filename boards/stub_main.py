@@ -1,34 +1,32 @@
 # spinrail boot stub: `spinrail flash` copies this file to the board's root as main.py.
-# It runs the firmware in the slot folder named by boot_target.txt. A flash writes the new
-# slot first and rewrites boot_target.txt last (write boot_target.new, then rename), so an
-# interrupted flash still boots the previous slot. hold.txt (left by the firmware when a
-# watchdog board is interrupted) skips the firmware once, leaving the REPL free.
+# It runs the firmware in the slot named by boot_target.txt (the confirmed slot). A flash
+# writes and verifies the new slot, then names it in boot_trial.txt: the stub boots a trial
+# slot once (the file is removed before the slot runs), and the flash makes it the boot
+# target (boot_target.new, renamed over boot_target.txt) only after the new firmware has
+# answered HELLO with the new hashes. A trial that fails at start-up goes back to the
+# confirmed slot in the same boot (boards/failsafe.py); after a trial that hangs, any later
+# boot (a reset, the watchdog, a power cycle) runs the confirmed slot again. hold.txt (left by
+# the firmware when a watchdog board is interrupted) skips the firmware once, leaving the
+# REPL free. Kept small: its code stays in RAM while the firmware runs (the heap floor).
 import sys
 
 
-def _target():
-    for name in ("boot_target.txt", "boot_target.new"):
-        try:
-            with open(name) as f:
-                slot = f.read().strip()
-            if slot:
-                return slot
-        except OSError:
-            pass
-    return ""
-
-
-def _hold():
-    import os
+def _f(name, rm=0):
+    """The file's text ("" if missing); rm: remove it too ("" if that fails)."""
     try:
-        os.remove("hold.txt")
-        return True
+        with open(name) as f:
+            s = f.read().strip()
+        if rm:
+            import os
+            os.remove(name)
+        return s
     except OSError:
-        return False
+        return ""
 
 
-_slot = _target()
-if _slot and not _hold():
-    sys.path.insert(0, _slot)
-    from boards import main as _fw
-    _fw.run(_slot)
+if not _f("hold.txt", 1):
+    _slot = _f("boot_trial.txt", 1) or _f("boot_target.txt") or _f("boot_target.new")
+    if _slot:
+        sys.path.insert(0, _slot)
+        from boards import main as _fw
+        _fw.run(_slot)

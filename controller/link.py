@@ -17,6 +17,7 @@ _PROTO = const(1)  # bumped on any layout change; the HELLO reply carries it
 
 _T_HELLO = const(0x01)  # host -> board: who are you (resets the sequence check)
 T_MEAS = const(0x02)  # host -> board: one set of measurements
+_T_BREAK = const(0x42)  # host -> board: stop the firmware, leave the REPL to the host
 _T_HELLO_R = const(0x81)  # board -> host: identity
 T_CMD = const(0x82)  # board -> host: commands and state after a tick
 _T_TELEM = const(0x83)  # board -> host: periodic telemetry (both modes)
@@ -32,6 +33,19 @@ _TELEM_LEN = const(76)
 _HELLO_LEN = const(3)
 _HELLO_R_LEN = const(42)
 _N_CELLS = const(12)
+_BREAK_LEN = const(8)
+# The BREAK payload. With the link on the REPL's channel the firmware turns the interrupt
+# character off (boards/main.py), so this frame is how a host breaks in: its wire bytes hold
+# none of the REPL's control characters, so at a plain REPL they are only typed and cleared.
+BREAK_MAGIC = b"SPIN!sah"  # with seq 0x2121: the CRC bytes are printable too
+
+# Leaving the link fault (docs/link.md, "Sequence numbers"): RECOVER_FRAMES accepted-looking
+# MEAS frames in a row, each within _CHAIN_SEQ sequence numbers and link_timeout_ms of
+# the one before, the first ahead of the last frame accepted before the loss in both seq and
+# t_ms. A replayed old frame is behind; one stray or forged frame is not a chain.
+RECOVER_FRAMES = const(3)
+_CHAIN_SEQ = const(4)
+_SEQ_WIN = const(32)  # while the link is up: at most this far ahead (31 frames missing)
 
 F_STEP = const(1)  # MEAS flags: tick now with now_ms = t_ms (lock-step), reply CMD
 _F_EQ = const(2)  # eq_req
@@ -48,6 +62,8 @@ _EV_NONE = const(0)
 EV_HELLO = const(1)  # send hello_frame()
 EV_MEAS = const(2)  # self.m holds new measurements (realtime: tick on the board's period)
 EV_STEP = const(3)  # as EV_MEAS, and tick now with now_ms = self.step_ms, then cmd_frame()
+EV_HOLD_STEP = const(4)  # a lock-step MEAS while the link fault holds: answer, do not tick
+EV_BREAK = const(5)  # a BREAK frame: stop the firmware
 
 _V_TOP_MAX = const(31)  # a measurement's top byte: keeps values within +/-2**29 (small ints)
 
@@ -99,17 +115,22 @@ class BoardLink:
         self.ident = ident  # HELLO reply bytes after proto and nonce (39 bytes, built once)
         self.m = m  # Measurements filled by MEAS frames (None: standalone, MEAS ignored)
         self.timeout_ms = timeout_ms  # silence longer than this: link lost
-        self.rx_seq = -1  # last accepted host seq; -1: accept any (after HELLO or a loss)
+        self.rx_seq = -1  # last accepted host seq; -1: accept any (at start, after HELLO)
+        self.rx_t = -1  # t_ms of the last accepted MEAS (host clock); -1: not known
+        self.t_win_ms = 2 * timeout_ms  # largest plausible t_ms step between two frames
         self.tx_seq = 0  # next board seq
         self.last_ms = 0  # board clock at the last accepted MEAS
         self.lost = 1  # 1 until the first MEAS, and again after a silence
+        self.chain = 0  # fresh frames in a row while lost (RECOVER_FRAMES ends the fault)
+        self.chain_seq = 0  # seq of the last frame in that chain
+        self.chain_t = 0  # t_ms of the last frame in that chain
         self.meas_seq = 0  # seq of the last accepted MEAS (echoed in CMD)
         self.step_ms = 0  # t_ms of the last lock-step MEAS
         self.nonce = 0  # from the last HELLO
         self.rx_ok = 0  # frames accepted
         self.rx_crc = 0  # CRC failures
         self.rx_short = 0  # wrong length, unknown type, values out of range
-        self.rx_order = 0  # duplicate or old sequence numbers
+        self.rx_order = 0  # duplicate, old or implausibly far ahead (seq or t_ms)
         self.rx_gaps = 0  # frames missing, by sequence number
         self.rx_ignored = 0  # MEAS in standalone mode
         self.losses = 0  # silences past the timeout
@@ -135,18 +156,40 @@ class BoardLink:
                 self.rx_short += 1
                 return _EV_NONE
             self.nonce = get16(b, HEAD + 1)
-            self.rx_seq = seq
+            self.rx_seq = seq  # a new session: seq and t_ms start afresh; the fault stays
+            self.rx_t = -1
+            self.chain = 0
             self.rx_ok += 1
             return EV_HELLO
+        if t == _T_BREAK:
+            if plen != _BREAK_LEN:
+                self.rx_short += 1
+                return _EV_NONE
+            magic = BREAK_MAGIC
+            for i in range(_BREAK_LEN):
+                if b[HEAD + i] != magic[i]:
+                    self.rx_short += 1
+                    return _EV_NONE
+            return EV_BREAK
         if t != T_MEAS or plen != MEAS_LEN:
             self.rx_short += 1
             return _EV_NONE
+        if b[HEAD + 4] > 0x3F:
+            self.rx_short += 1
+            return _EV_NONE  # t_ms beyond the 30-bit clock
+        t_ms = gets32(b, HEAD + 1)
+        lost = self.lost
+        d = 1
         if self.rx_seq >= 0:
             d = (seq - self.rx_seq) & 0xFFFF
-            if d == 0 or d >= 0x8000:
+            if d == 0 or d >= 0x8000 or (d > _SEQ_WIN and not lost):
                 self.rx_order += 1
                 return _EV_NONE
-            self.rx_gaps += d - 1
+        if self.rx_t >= 0:
+            dt = ticks_diff(t_ms, self.rx_t)
+            if dt < 0 or (dt > self.t_win_ms and not lost):
+                self.rx_order += 1
+                return _EV_NONE
         if self.m is None:
             self.rx_ignored += 1
             self.rx_seq = seq
@@ -154,19 +197,37 @@ class BoardLink:
         if not self._decode_meas(b, HEAD):
             self.rx_short += 1
             return _EV_NONE
+        if lost:
+            # one link of the chain that ends the fault (see RECOVER_FRAMES)
+            dc = (seq - self.chain_seq) & 0xFFFF
+            if (self.chain and 0 < dc <= _CHAIN_SEQ
+                    and 0 <= ticks_diff(t_ms, self.chain_t) <= self.t_win_ms):
+                self.chain += 1
+            else:
+                self.chain = 1
+            self.chain_seq = seq
+            self.chain_t = t_ms
+            if self.chain < RECOVER_FRAMES:
+                self.meas_seq = seq
+                if b[HEAD] & F_STEP:
+                    self.step_ms = t_ms
+                    return EV_HOLD_STEP
+                return _EV_NONE
+            self.chain = 0
+        else:
+            self.rx_gaps += d - 1
         self.rx_seq = seq
+        self.rx_t = t_ms
         self.meas_seq = seq
         self.rx_ok += 1
         self.last_ms = now_ms
         self.lost = 0
         if b[HEAD] & F_STEP:
-            self.step_ms = gets32(b, HEAD + 1)
+            self.step_ms = t_ms
             return EV_STEP
         return EV_MEAS
 
     def _decode_meas(self, b, o):
-        if b[o + 4] > 0x3F:
-            return 0  # t_ms beyond the 30-bit clock
         for k in range(10):
             if not _top_ok(b, o + 5 + 4 * k):
                 return 0
@@ -194,12 +255,12 @@ class BoardLink:
         return 1
 
     def check(self, now_ms):
-        """Silence check; returns 1 while the link is lost. A loss re-opens the sequence
-        check, so a restarted host is accepted."""
+        """Silence check; returns 1 while the link is lost. The last accepted seq and t_ms
+        stay: frames from before the loss cannot end it (a restarted host sends HELLO)."""
         if not self.lost and ticks_diff(now_ms, self.last_ms) > self.timeout_ms:
             self.lost = 1
             self.losses += 1
-            self.rx_seq = -1
+            self.chain = 0
         return self.lost
 
     # -- outgoing frames: each returns the wire length in self.tx.out --------------------------

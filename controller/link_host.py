@@ -22,7 +22,8 @@ LAYOUT = ("HELLO_FMT", "HELLO_R_FMT", "MEAS_FMT", "CMD_FMT", "TELEM_FMT", "MEAS_
           "TELEM_COUNTERS")
 PRIVATE = ("PROTO", "T_HELLO", "T_HELLO_R", "T_TELEM", "MAX_PAYLOAD", "TELEM_LEN", "HELLO_LEN",
            "HELLO_R_LEN", "N_CELLS", "F_EQ", "F_RESET", "SW_USB_CONV", "SW_USB_ON",
-           "SW_USB_PROBE", "SW_BATT_OUT", "EV_NONE")
+           "SW_USB_PROBE", "SW_BATT_OUT", "EV_NONE", "T_BREAK", "BREAK_LEN", "CHAIN_SEQ",
+           "SEQ_WIN")
 
 
 def publish(ns):

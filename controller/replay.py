@@ -15,13 +15,42 @@ OUT_HEADER = ("t_ms,batt_duty,cap_duty,dump_duty,usb_conv,usb_on,usb_probe,batt_
               "stage,usb_match,fault\n")
 
 
+# What each column may hold (docs: `spinrail vectors run --help`). The same bounds on both
+# interpreters: a measurement within +/-2**29, as on the link (a small int on a 32-bit port);
+# t_ms 0 .. 2**31 - 1 (masked to the 30-bit clock); the request flags 0 or 1.
+V_MIN = -(1 << 29)
+V_MAX = (1 << 29) - 1
+T_MAX = (1 << 31) - 1
+FLAGS = ("eq_req", "reset_req")
+_DIGITS_MAX = 10  # digits in the longest value allowed (2**31 - 1)
+
+
 class VectorError(ValueError):
     """A vector file is wrong; the message names the line and the column."""
 
 
+def clean_line(text, lineno):
+    """A line without its line end; a CR anywhere else is refused (CR-only line ends would
+    be one line on MicroPython and many on CPython, so both refuse them)."""
+    if text.endswith("\n"):
+        text = text[:-1]
+    if text.endswith("\r"):
+        text = text[:-1]
+    if "\r" in text:
+        raise VectorError("line %d: CR-only line ends (a carriage return inside a line): save "
+                          "the file with LF or CRLF line ends" % lineno)
+    return text
+
+
 def columns(header):
     """Map a header line to (index of each REQUIRED+OPTIONAL field or -1, cell indexes)."""
-    names = [h.strip() for h in header.strip().split(",")]
+    header = clean_line(header, 1)
+    if header.startswith("\ufeff"):
+        header = header[1:]  # a byte-order mark (spreadsheet exports): accepted
+    names = [h.strip() for h in header.split(",")]
+    for i in range(len(names)):
+        if names[i] in names[:i]:
+            raise VectorError("line 1: column %s appears twice" % names[i])
     idx = []
     for f in REQUIRED:
         if f not in names:
@@ -39,9 +68,25 @@ def columns(header):
     return names, idx, cells
 
 
+def _integer(s):
+    """An optional minus sign and ASCII digits, else None (int() accepts more on CPython
+    than on MicroPython: '+5', '1_000', other scripts' digits). More than _DIGITS_MAX digits
+    give T_MAX + 1 (out of every range) without making a big integer."""
+    n = len(s)
+    i = 1 if n and s[0] == "-" else 0
+    if n == i:
+        return None
+    for c in s[i:]:
+        if c < "0" or c > "9":
+            return None
+    if n - i > _DIGITS_MAX:
+        return -T_MAX - 1 if i else T_MAX + 1
+    return int(s)
+
+
 def parse_row(names, fields, lineno, idx, cells, out):
     """Integers of one data line into out (a list, len(REQUIRED)+len(OPTIONAL)+len(cells))."""
-    if len(fields) < len(names):
+    if len(fields) != len(names):
         raise VectorError("line %d: %d fields, header has %d" % (lineno, len(fields), len(names)))
     k = 0
     for j in idx + cells:
@@ -49,10 +94,24 @@ def parse_row(names, fields, lineno, idx, cells, out):
             out[k] = 0
         else:
             s = fields[j].strip()
-            try:
-                out[k] = int(s)
-            except ValueError:
-                raise VectorError("line %d: column %s = %r is not an integer" % (lineno, names[j], s))
+            name = names[j]
+            v = _integer(s)
+            if v is None:
+                if len(s) > 40:
+                    s = s[:40] + "..."
+                raise VectorError("line %d: column %s = %r is not an integer" % (lineno, name, s))
+            if name == "t_ms":
+                lo, hi = 0, T_MAX
+            elif name in FLAGS:
+                lo, hi = 0, 1
+            else:
+                lo, hi = V_MIN, V_MAX
+            if v < lo or v > hi:
+                if len(s) > 40:
+                    s = s[:40] + "..."
+                raise VectorError("line %d: column %s = %s: allowed %d to %d" % (
+                    lineno, name, s, lo, hi))
+            out[k] = v
         k += 1
     return out
 
@@ -95,6 +154,7 @@ def run(p, lines, write):
     lineno = 1
     for line in it:
         lineno += 1
+        line = clean_line(line, lineno)
         if not line.strip():
             continue
         parse_row(names, line.split(","), lineno, idx, cells, v)

@@ -15,7 +15,7 @@ def _err(msg):
 def cmd_flash(args):
     from host_sim import deploy
     r = deploy.flash(args.port, args.board, args.profile, mode=args.mode, timeout_s=args.timeout,
-                     start=not args.no_start, log=None if args.quiet else (lambda m: _err("flash: " + m)))
+                     start=not args.no_start, check=args.check, log=None if args.quiet else (lambda m: _err("flash: " + m)))
     print("flashed %s on %s: slot %s (was %s), mode %s, %d files, %d bytes, %.1f s" % (
         r.board, r.port, r.slot, r.previous or "empty", r.mode, r.files, r.bytes, r.seconds))
     print("firmware sha256 %s" % r.fw_sha256)
@@ -29,7 +29,7 @@ def cmd_flash(args):
     print("board answers: %r" % h)
     if not same:
         raise UserError("the board runs firmware %s / profile %s, not the one just flashed"
-                        % (h.fw_hash, h.profile_hash), exit_code=1)
+                        % (h.fw_hash, h.profile_hash))
     return 0
 
 
@@ -77,6 +77,8 @@ def cmd_board_virtual(args):
     def _term(signum, frame):
         raise KeyboardInterrupt
     signal.signal(signal.SIGTERM, _term)  # stop cleanly (and reap the interpreter) on kill
+    # Ctrl-C stops it even when started where SIGINT is ignored (a shell's background job)
+    signal.signal(signal.SIGINT, signal.default_int_handler)
     port = vb.start()
     print(port, flush=True)
     _err("virtual board: port %s, filesystem %s, heap %d KB, interpreter %s; Ctrl-C stops it"
@@ -95,6 +97,16 @@ def cmd_board_restart(args):
     return 0
 
 
+def cmd_board_stop(args):
+    from host_sim import deploy
+    if not deploy.stop(args.port, timeout_s=args.timeout):
+        raise UserError("port %s: no REPL prompt within %.0f s after the BREAK frame (is a "
+                        "MicroPython board on it?)" % (args.port, args.timeout))
+    print("stopped the firmware on %s: the REPL is free (mpremote, a terminal); "
+          "`spinrail board restart` starts it again" % args.port)
+    return 0
+
+
 def cmd_monitor(args):
     from host_sim.monitor import monitor, parse_feed
     feed = parse_feed(args.feed) if args.feed is not None else None
@@ -106,8 +118,10 @@ def register(sub):
     f = sub.add_parser("flash", help="validate, compile and copy the firmware to a board",
                        description="Validate the profile and the board file, compile the "
                        "controller with mpy-cross, copy it into the board's inactive slot with "
-                       "mpremote, verify every file by sha256 on the board, then switch the "
-                       "boot target. An interrupted flash leaves the previous version booting.")
+                       "mpremote, verify every file by sha256 on the board, then boot it once as a "
+                       "trial: it becomes the boot target only when it answers HELLO with the "
+                       "new hashes, else the board goes back to the previous version (exit 2). "
+                       "An interrupted flash leaves the previous version booting.")
     f.add_argument("--board", required=True, help="board name (boards/NAME.json) or board file")
     f.add_argument("--port", required=True, help="serial port or pyserial URL (/dev/ttyACM0, "
                    "the path `spinrail board virtual` prints)")
@@ -118,9 +132,10 @@ def register(sub):
     f.add_argument("--timeout", type=float, default=10.0, help="seconds to wait for the board "
                    "(default: %(default)s)")
     f.add_argument("--no-start", action="store_true", help="do not soft-reset into the new "
-                   "firmware afterwards")
+                   "firmware afterwards (no trial boot: the boot target switches at once)")
     f.add_argument("--no-check", dest="check", action="store_false",
-                   help="skip the HELLO handshake that confirms the running firmware's hashes")
+                   help="skip the HELLO handshake that confirms the running firmware's hashes "
+                   "(no trial boot: the boot target switches at once)")
     f.add_argument("-q", "--quiet", action="store_true", help="no progress on stderr")
     f.set_defaults(func=cmd_flash)
 
@@ -146,6 +161,16 @@ def register(sub):
     br.add_argument("--port", required=True, help="serial port or pyserial URL")
     br.add_argument("--timeout", type=float, default=10.0, help="seconds to wait for the board")
     br.set_defaults(func=cmd_board_restart)
+
+    bp = bs.add_parser("stop", help="stop the firmware and leave the REPL free",
+                       description="Send the link's BREAK frame: the firmware (which turns "
+                       "Ctrl-C off while its link runs on the REPL's channel) leaves its loop "
+                       "with storage and USB off and the dump load on, and the board waits at "
+                       "its REPL for mpremote or a terminal. flash and restart do this "
+                       "themselves.")
+    bp.add_argument("--port", required=True, help="serial port or pyserial URL")
+    bp.add_argument("--timeout", type=float, default=3.0, help="seconds to wait for the prompt")
+    bp.set_defaults(func=cmd_board_stop)
 
     m = sub.add_parser("monitor", help="live telemetry from a board",
                        description="Print telemetry frames as they arrive; optionally write "

@@ -44,9 +44,40 @@ def profile_path(arg):
     return str(p)
 
 
+def read_profile(path):
+    """(document, Profile) of a profile file, read with the strict JSON loader (duplicate
+    keys, deep nesting, huge integers refused). Raises ConfigError naming the file."""
+    from host_sim.fileio import JsonError, load_json
+    try:
+        doc = load_json(path)
+    except OSError as e:
+        raise ConfigError("%s: cannot read profile (%s)" % (path, e.strerror or e))
+    except JsonError as e:
+        raise ConfigError(str(e))
+    try:
+        return doc, _profile.from_dict(doc)
+    except ConfigError as e:
+        raise ConfigError("%s: %s" % (path, name_derived(doc, str(e))))
+
+
+def name_derived(doc, msg):
+    """A range error on a field the profile does not hold can only be a default worked out
+    from other fields (charge_limit_a is 0.2 C of capacity_ah): say so. (Host side: the
+    board's validation code stays as small as it is.)"""
+    field = msg.split(" = ", 1)[0]
+    if " = " not in msg or " " in field or not isinstance(doc, dict):
+        return msg
+    node = doc
+    for part in field.split("."):
+        if not isinstance(node, dict) or part not in node:
+            return msg + " (not written in the profile: derived from the other fields; write it)"
+        node = node[part]
+    return msg
+
+
 def load_profile(arg):
     path = profile_path(arg)
     try:
-        return _profile.load(path), path
+        return read_profile(path)[1], path
     except ConfigError as e:
         raise UserError(str(e))

@@ -22,13 +22,13 @@ from pathlib import Path
 from boards import board as _board
 from controller import profile as _profile
 from controller.compat import ConfigError
-from host_sim.common import ROOT, profile_path
+from host_sim.common import ROOT, profile_path, read_profile
 from host_sim.errors import UserError
 
 SLOTS = ("sr_a", "sr_b")
 STUB = ROOT / "boards" / "stub_main.py"
-BOARD_SOURCES = ("boards/__init__.py", "boards/firmware.py", "boards/hal.py",
-                 "boards/hal_machine.py", "boards/load.py", "boards/main.py")
+BOARD_SOURCES = ("boards/__init__.py", "boards/failsafe.py", "boards/firmware.py",
+                 "boards/hal.py", "boards/hal_machine.py", "boards/load.py", "boards/main.py")
 _TARGET = "boot_target.txt"
 _READ_TIMEOUT_S = 1.0
 
@@ -72,6 +72,19 @@ except OSError:
     print(repr(''))
 """
 
+_TRIAL = """import os
+with open('boot_trial.new', 'w') as f:
+    f.write(%r)
+os.rename('boot_trial.new', 'boot_trial.txt')
+"""
+
+_READ_LOG = """try:
+    with open(%r) as f:
+        print(f.read(600))
+except OSError:
+    pass
+"""
+
 _SWITCH = """import os
 with open('boot_target.new', 'w') as f:
     f.write(%r)
@@ -101,9 +114,8 @@ def firmware_hash(sources=None):
 
 def canonical_profile(path):
     """The profile as written to the board: the parsed document in canonical JSON."""
-    with open(path) as f:
-        doc = json.load(f)
-    return json.dumps(doc, sort_keys=True, separators=(",", ":")).encode()
+    from host_sim.fileio import load_json
+    return json.dumps(load_json(path), sort_keys=True, separators=(",", ":")).encode()
 
 
 def find_mpy_cross():
@@ -159,6 +171,17 @@ def check_pair(board, prof, mode):
                                     board.path, top_mv / 1000, prof.ovp_trip_mv / 1000))
 
 
+HEAP_FLOOR_KB = 48  # the firmware's heap floor (docs/boards.md, tests/link/test_heap_floor.py)
+
+
+def profile_budget(heap_kb):
+    """Largest profile (canonical bytes) a board with heap_kb loads with room to spare.
+    Measured on the unix port (profile.load from source, then the loop's modules): about 2
+    bytes of heap per profile byte beyond a fixed part (85 KB loaded in a 192 KiB heap,
+    53 KB in 128 KiB); this allows half of that beyond the firmware's floor."""
+    return max(0, heap_kb - HEAP_FLOOR_KB) * 1024 // 4
+
+
 def build_bundle(board_arg, profile_arg=None, mode=None, workdir=None, log=None):
     """Validate and compile. Raises UserError before anything touches the board."""
     try:
@@ -167,7 +190,7 @@ def build_bundle(board_arg, profile_arg=None, mode=None, workdir=None, log=None)
         raise UserError(str(e))
     prof_path = profile_path(profile_arg)
     try:
-        prof = _profile.load(prof_path)
+        prof = read_profile(prof_path)[1]
     except ConfigError as e:
         raise UserError("profile failed validation, nothing copied: %s" % e)
     mode = mode or board.mode
@@ -193,6 +216,11 @@ def build_bundle(board_arg, profile_arg=None, mode=None, workdir=None, log=None)
             shutil.rmtree(work, ignore_errors=True)
     hw = dict(board.hw, mode=mode)
     prof_bytes = canonical_profile(prof_path)
+    budget = profile_budget(board.heap_kb)
+    if len(prof_bytes) > budget:
+        raise UserError("%s: the profile is %d bytes as written to the board; a board with "
+                        "heap_kb = %d loads at most %d (docs/boards.md, Heap): shorten its notes; "
+                        "nothing copied" % (prof_path, len(prof_bytes), board.heap_kb, budget))
     files.append(("hw.json", json.dumps(hw, sort_keys=True).encode()))
     files.append(("board.json", Path(board.path).read_bytes()))
     files.append(("profile.json", prof_bytes))
@@ -227,6 +255,10 @@ def connect(port, timeout_s=10.0):
     except (TransportError, OSError) as e:
         raise UserError("port %s: cannot open (%s)" % (port, e))
     try:
+        # the firmware has the interrupt character off on the REPL's channel: a BREAK frame
+        # stops it first (harmless to a board at a plain REPL), then mpremote's Ctrl-C works
+        if not _break_in(t.serial, timeout_s):
+            raise TransportError("no REPL prompt after the BREAK frame")
         t.enter_raw_repl(soft_reset=True, timeout_overall=timeout_s)
     except (TransportError, OSError) as e:
         t.close()
@@ -265,6 +297,57 @@ def _start(t):
     time.sleep(0.05)
 
 
+def _break_in(ser, timeout_s):
+    """BREAK frame and Ctrl-C until the board is at a REPL (True) within timeout_s: a prompt
+    shows (Ctrl-B asks for one, from the raw REPL too), or the line stays quiet (a running
+    firmware sends frames every period; mpremote's own wait never ends while it does). A
+    firmware that is still booting reads the frame only once its loop runs: it goes again."""
+    from host_sim.seriallink import break_wire
+    seen = b""
+    deadline = time.monotonic() + timeout_s
+    next_break = 0.0
+    quiet_since = None
+    while time.monotonic() < deadline:
+        now = time.monotonic()
+        if now >= next_break:
+            ser.write(break_wire() + b"\x03")
+            ser.flush()
+            next_break = now + 1.0
+            quiet_since = None
+        time.sleep(0.05)
+        n = ser.in_waiting
+        if n:
+            seen = (seen + ser.read(n))[-64:]
+            quiet_since = None
+            if seen.endswith((b">>> ", b"\n>")):
+                return True
+        else:
+            if quiet_since is None:
+                quiet_since = time.monotonic()
+                ser.write(b"\x02")  # Ctrl-B: the friendly REPL's banner and prompt
+            elif time.monotonic() - quiet_since > 0.6:
+                return True
+    return False
+
+
+def stop(port, timeout_s=3.0):
+    """Stop the firmware and leave the board at its REPL, so that plain mpremote (or a
+    terminal) can use it: the firmware turns the interrupt character off while its link runs
+    on the REPL's channel, and a BREAK frame is the way in (docs/link.md). Returns True once
+    a REPL prompt was seen."""
+    import serial
+    if "://" not in port and not os.path.exists(port):
+        raise UserError("port %s: no such device" % port)
+    try:
+        ser = serial.serial_for_url(port, baudrate=115200, timeout=0.1)
+    except (serial.SerialException, OSError, ValueError) as e:
+        raise UserError("port %s: cannot open (%s)" % (port, e))
+    try:
+        return _break_in(ser, timeout_s)
+    finally:
+        ser.close()
+
+
 def restart(port, timeout_s=10.0):
     """Break into the board and soft-reset it into its firmware (as after a flash)."""
     t = connect(port, timeout_s)
@@ -279,9 +362,47 @@ class FlashResult:
         self.__dict__.update(kw)
 
 
+def _switch(t, slot):
+    _exec(t, _SWITCH % (slot, _TARGET), "switching the boot target")
+    if active_slot(t) != slot:
+        raise UserError("boot_target.txt did not switch to %s" % slot)
+
+
+def _confirm(port, slot, old, b, timeout_s, say):
+    """After the trial boot: HELLO with the new hashes makes the slot permanent; anything
+    else rolls back to the previous slot (the trial file is already gone from the board)."""
+    from host_sim.seriallink import SerialLink
+    fw16 = b.manifest["fw_sha256"][:16]
+    prof16 = b.manifest["profile_sha256"][:16]
+    why = None
+    try:
+        with SerialLink(port) as link:
+            h = link.hello(timeout_s=min(timeout_s, 5.0))
+        if (h.fw_hash, h.profile_hash) != (fw16, prof16):
+            why = "it answered with firmware %s / profile %s" % (h.fw_hash, h.profile_hash)
+    except UserError as e:
+        why = "no answer to HELLO (%s)" % e
+    t = connect(port, timeout_s)
+    try:
+        if why is None:
+            _switch(t, slot)
+            say("the new firmware answered HELLO: boot target switched to %s" % slot)
+            _start(t)
+            return
+        log = _exec(t, _READ_LOG % (slot + "/fault.log"), "reading the trial's fault.log")
+        _start(t)  # boots the previous slot
+    finally:
+        t.close()
+    log = " ".join(log.split())[-300:]
+    raise UserError("the new version in %s did not start on this board: %s%s; rolled back, the "
+                    "board boots %s" % (slot, why, ("; its fault.log: " + log) if log else "",
+                                        old or "nothing"))
+
+
 def flash(port, board_arg, profile_arg=None, mode=None, timeout_s=10.0, chunk=1024, start=True,
-          log=None, before_switch=None):
-    """Flash a board. before_switch (tests): called after verification, before the switch."""
+          log=None, before_switch=None, check=True):
+    """Flash a board. before_switch (tests): called after verification, before the switch.
+    start and check: a trial boot, confirmed by HELLO (start only: switch, then start)."""
     say = log or (lambda msg: None)
     t0 = time.monotonic()
     b = build_bundle(board_arg, profile_arg, mode, log=say)
@@ -290,6 +411,8 @@ def flash(port, board_arg, profile_arg=None, mode=None, timeout_s=10.0, chunk=10
         old = active_slot(t)
         slot = SLOTS[1] if old == SLOTS[0] else SLOTS[0]
         say("active slot %s; writing %s" % (old or "(none)", slot))
+        # a trial left by an interrupted flash must not name the slot about to be rewritten
+        _exec(t, _RM % "boot_trial.txt", "removing a stale trial")
         _exec(t, _RM % slot, "clearing the inactive slot")
         dirs = sorted({slot + "/" + os.path.dirname(rel) for rel, _ in b.files if "/" in rel})
         for d in [slot] + dirs:
@@ -319,17 +442,25 @@ def flash(port, board_arg, profile_arg=None, mode=None, timeout_s=10.0, chunk=10
             say("boot stub installed as main.py")
         if before_switch is not None:
             before_switch()
-        _exec(t, _SWITCH % (slot, _TARGET), "switching the boot target")
-        if active_slot(t) != slot:
-            raise UserError("boot_target.txt did not switch to %s" % slot)
-        say("boot target switched to %s" % slot)
-        if start:
+        trial = start and check
+        if trial:
+            # the new slot boots once; it becomes the boot target only after it answered
+            _exec(t, _TRIAL % slot, "naming the trial slot")
+            say("trial boot of %s (the board falls back to %s unless it answers)"
+                % (slot, old or "nothing"))
             _start(t)
+        else:
+            _switch(t, slot)
+            say("boot target switched to %s" % slot)
+            if start:
+                _start(t)
     finally:
         try:
             t.close()
         except Exception:
             pass
+    if trial:
+        _confirm(port, slot, old, b, timeout_s, say)
     return FlashResult(board=b.board.name, port=port, slot=slot, previous=old, mode=b.mode,
                        files=len(b.files), bytes=sum(len(d) for _, d in b.files),
                        fw_sha256=b.manifest["fw_sha256"],

@@ -6,12 +6,15 @@
 import copy
 import json
 import math
+import numbers
 import os
 from pathlib import Path
 
 from controller import profile as _profile
 from controller.compat import ConfigError
 from controller.profile_fields import CHEMISTRIES, SCHEMES
+from host_sim.common import name_derived, read_profile
+from host_sim.fileio import JsonError, load_json, short
 
 # the parts a scenario may declare different from its profile on purpose (accept_mismatch);
 # host_sim/service.py judges the others (profile_mismatch)
@@ -366,7 +369,16 @@ EVENT_NEEDS = {
 # ---- validation -----------------------------------------------------------------------------
 
 def _fmt(v):
-    return json.dumps(v) if isinstance(v, (str, bool)) or v is None else repr(v)
+    """A value as the user wrote it, plain (numpy numbers print as numbers) and short."""
+    if isinstance(v, (str, bool)) or v is None:
+        return short(json.dumps(v))
+    if isinstance(v, numbers.Integral):
+        return str(int(v))
+    if isinstance(v, numbers.Real):
+        return repr(float(v))
+    if isinstance(v, (list, dict)):
+        return short(json.dumps(v, default=str))
+    return short(repr(v))
 
 
 class _V:
@@ -445,11 +457,12 @@ class _V:
             self.err(path, v, "a number from " + rng.strip(), f.why)
         if v < f.lo or v > f.hi or math.isinf(v):
             self.err(path, v, rng.strip(), f.why)
-        return float(v) if f.kind == "N" else v
+        return float(v) if f.kind == "N" else v  # in range: float() cannot overflow
 
     def series(self, v, f, path):
         if not isinstance(v, list) or len(v) > 100000:
-            self.err(path, v, "a list")
+            self.err(path, v if not isinstance(v, list) else "[%d items]" % len(v),
+                     "a list of at most 100000 items")
         out = []
         last = -math.inf
         for i, x in enumerate(v):
@@ -547,7 +560,10 @@ def _drive(v, d):
 def _load_profile(v, p, base_dir):
     try:
         if isinstance(p, dict):
-            return p, _profile.from_dict(p)
+            try:
+                return p, _profile.from_dict(p)
+            except ConfigError as e:
+                raise ConfigError(name_derived(p, str(e)))
         if not isinstance(p, str) or not p:
             v.err("profile", p, "a built-in name, a path or an inline object")
         if p == "default":
@@ -559,9 +575,7 @@ def _load_profile(v, p, base_dir):
                 v.err("profile", p, "a built-in profile (%s) or a path" % ", ".join(names))
         else:
             path = os.path.join(base_dir or ".", p)
-        with open(path) as fh:
-            doc = json.load(fh)
-        return doc, _profile.load(path)
+        return read_profile(path)
     except ConfigError as e:
         raise ScenarioError("%s: profile: %s" % (v.src, e))
     except OSError as e:
@@ -620,10 +634,45 @@ def _derive(v, out, prof, src):
         for need in EVENT_NEEDS.get(e["kind"], ()):
             if e[need] is None:
                 v.err(p + "." + need, None, "a value", "kind %s needs it" % e["kind"])
+    _physical(v, out, prof)
     d = out["drive"]
     for k in ("stop_s",):
         if k in d and d[k] is not None and d[k] < d.get("start_s", 0):
             v.err("drive." + k, d[k], "after drive.start_s")
+
+
+MACHINE_RPM_MAX = 20000  # from memory: small brushed PM machines are rated 3,000-20,000 rpm
+SCRIPTED_NM_MAX = 1000  # drive-shaft torque; a person gives at most 300 (drive.torque_max_nm)
+
+
+def _physical(v, out, prof):
+    """What the machine and the stores can physically take, and a start inside the limits
+    the run judges (a start outside them is the scenario's state, not the controller's
+    doing)."""
+    d = out["drive"]
+    ratio = out["gear"]["ratio"]
+    if d["kind"] == "scripted":
+        for i, (t, y) in enumerate(d["points"]):
+            p = "drive.points[%d][1]" % i
+            if d["mode"] == "speed" and abs(y) * ratio > MACHINE_RPM_MAX:
+                v.err(p, y, "|rpm| x gear.ratio %s <= %d rpm at the machine, i.e. up to %s rpm "
+                      "here" % (_g(ratio), MACHINE_RPM_MAX, _g(MACHINE_RPM_MAX / ratio)),
+                      "a small PM machine, from memory: rated 3,000-20,000 rpm")
+            if d["mode"] == "torque" and abs(y) > SCRIPTED_NM_MAX:
+                v.err(p, y, "-%d to %d N m" % (SCRIPTED_NM_MAX, SCRIPTED_NM_MAX),
+                      "a drive shaft a person or a small rotor turns")
+    sc = out["supercap"]
+    clamp_v = prof.cap_clamp_mv / 1000.0
+    if sc["present"] and sc["cells"] * sc["v0_per_cell"] > clamp_v:
+        v.err("supercap.v0_per_cell", sc["v0_per_cell"], "0 to %g V: the bank of %d cells would "
+              "start at %g V, above the profile's clamp %g V" % (
+                  clamp_v / sc["cells"], sc["cells"], sc["cells"] * sc["v0_per_cell"], clamp_v),
+              "a start state outside the limits, not something the controller did")
+    bus_v = prof.ovp_trip_mv / 1000.0 + out["bus"]["clamp_margin_v"]
+    if out["bus"]["initial_v"] > bus_v:
+        v.err("bus.initial_v", out["bus"]["initial_v"], "0 to %g V (the overvoltage trip plus "
+              "bus.clamp_margin_v)" % bus_v, "a start state outside the limits, not something "
+              "the controller did")
 
 
 class Scenario:
@@ -658,12 +707,11 @@ def load_scenario(name_or_path):
             raise ScenarioError("%s: no such scenario file or built-in name; built-ins: %s"
                                 % (s, ", ".join(builtin_names())))
     try:
-        with open(path) as fh:
-            doc = json.load(fh)
+        doc = load_json(path)
     except OSError as e:
-        raise ScenarioError("%s: cannot read scenario (%s)" % (path, e))
-    except ValueError as e:
-        raise ScenarioError("%s: not valid JSON (%s)" % (path, e))
+        raise ScenarioError("%s: cannot read scenario (%s)" % (path, e.strerror or e))
+    except JsonError as e:
+        raise ScenarioError(str(e))
     return validate(doc, path, os.path.dirname(os.path.abspath(path)))
 
 

@@ -11,8 +11,16 @@ import serial
 from controller import link as L
 from controller.cobs import Deframer, Framer
 from controller.crc16 import crc16
-from controller.signals import FAULT_NAMES, STAGE_NAMES, Commands
+from controller.signals import F_LINK, FAULT_NAMES, STAGE_NAMES, Commands
 from host_sim.errors import UserError
+
+
+def break_wire():
+    """The BREAK frame on the wire (fixed bytes: seq 0x2121, see controller.link)."""
+    body = bytearray([L.T_BREAK]) + struct.pack("<H", 0x2121) + L.BREAK_MAGIC
+    body += struct.pack("<H", crc16(body))
+    f = Framer(L.MAX_BODY)
+    return bytes(f.out[:f.frame(body, len(body))])
 
 
 def fault_names(bits):
@@ -94,6 +102,7 @@ class SerialLink:
         self.bad_frames = 0  # wrong length or unknown type
         self.board_gaps = 0  # board frames missing, by sequence number
         self.rtt_s = []  # lock-step round trips
+        self.held = 0  # lock-step frames answered with the link fault (sent again)
         self.queue = []  # decoded messages not yet taken
         try:
             self._fd = self.ser.fileno()
@@ -127,7 +136,11 @@ class SerialLink:
         self.sent += 1
         return seq
 
-    def send_meas(self, m, t_ms=0, step=False):
+    def send_meas(self, m, t_ms=None, step=False):
+        """One MEAS frame. t_ms: the host's clock (30 bits; default: this host's monotonic
+        milliseconds). The board refuses a t_ms that goes backwards (docs/link.md)."""
+        if t_ms is None:
+            t_ms = int(time.monotonic() * 1000)
         flags = ((L.F_STEP if step else 0) | (L.F_EQ if m.eq_req else 0)
                  | (L.F_RESET if m.reset_req else 0))
         cells = list(m.cell_mv[:L.N_CELLS]) + [0] * (L.N_CELLS - len(m.cell_mv))
@@ -224,11 +237,26 @@ class SerialLink:
 
     def step(self, m, t_ms, timeout_s=1.0):
         """Lock-step: send m for host time t_ms, wait for the CMD frame of that tick.
-        Returns a CmdFrame, or None on timeout (the frame or its answer was lost)."""
-        t0 = time.perf_counter()
-        seq = self.send_meas(m, t_ms, step=True)
-        msg = self.wait_for(lambda x: isinstance(x, CmdFrame) and x.ack_seq == seq
-                            and x.now_ms == (t_ms & 0x3FFFFFFF), timeout_s)
+        Returns a CmdFrame, or None on timeout (the frame or its answer was lost).
+        A board in the link fault (at start, after a silence) ticks only after
+        L.RECOVER_FRAMES fresh frames in a row; until then it answers with the safe state and
+        F_LINK, and the frame is sent again (same t_ms, next seq), so the caller sees ticks."""
+        for _ in range(L.RECOVER_FRAMES):
+            t0 = time.perf_counter()
+            seq = self.send_meas(m, t_ms, step=True)
+            msg = self.wait_for(lambda x: isinstance(x, CmdFrame) and x.ack_seq == seq
+                                and x.now_ms == (t_ms & 0x3FFFFFFF), timeout_s)
+            if msg is None or not msg.c.fault & F_LINK:
+                break
+            self.held += 1
         if msg is not None:
             self.rtt_s.append(time.perf_counter() - t0)
         return msg
+
+    def send_break(self, wait_s=0.3):
+        """Stop the firmware (a BREAK frame, then Ctrl-C for a board whose interrupt
+        character is on) and give it wait_s to reach the REPL. Harmless at a plain REPL:
+        the frame's bytes are only typed there, and the Ctrl-C clears them."""
+        self.ser.write(break_wire() + b"\x03")
+        self.ser.flush()
+        time.sleep(wait_s)

@@ -4,7 +4,6 @@
 # when, by how much; wins over 3), 2 bad input, 3 every limit held but a service warning was
 # raised (host_sim/service.py: it did not do its job).
 import sys
-from pathlib import Path
 
 import numpy as np
 
@@ -12,7 +11,8 @@ from controller.signals import FAULT_NAMES, STAGE_NAMES
 from host_sim import report, runner
 from host_sim.common import caution
 from host_sim.errors import UserError
-from host_sim.fileio import atomic_open, write_json
+from host_sim.fileio import OutputSet, atomic_open, write_json
+from host_sim.plantcheck import numerical_failure
 
 DEMO = "demo"
 
@@ -100,7 +100,8 @@ def _every(result):
     return result.ticks / n if n else 1
 
 
-def print_table(summ, out=sys.stdout):
+def print_table(summ, out=None):
+    out = out or sys.stdout  # bound at call time (a default bound at import goes stale in tests)
     e = summ["energy_j"]
     print("scenario %s: %.0f s simulated in %.2f s (x%.0f)" % (
         summ["scenario"], summ["duration_s"], summ["wall_s"], summ["sim_speedup"]), file=out)
@@ -178,13 +179,16 @@ def print_service(sv, out=sys.stdout):
 
 def simulate(name_or_path, out_dir, every=1, progress=True):
     sc = load(name_or_path)
-    out = Path(out_dir)
-    result = runner.run(sc, progress=progress, every=every)
-    summ = summary(result)
-    out.mkdir(parents=True, exist_ok=True)
-    write_timeseries(result, out / "timeseries.csv")
-    write_json(out / "summary.json", summ)
-    report.write(result, out / "report.png", summ["verdict"])
+    with OutputSet(out_dir) as out:  # --out checked and locked before the long run
+        result = runner.run(sc, progress=progress, every=every)
+        numerical_failure(result)
+        summ = summary(result)
+
+        def fill(d):
+            write_timeseries(result, d / "timeseries.csv")
+            write_json(d / "summary.json", summ)
+            report.write(result, d / "report.png", summ["verdict"])
+        out.write(fill)  # the three files replace the folder's set as one
     return result, summ
 
 

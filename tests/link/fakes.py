@@ -94,6 +94,14 @@ def make(mode=L.MODE_LINK, values=None, log_path=None, timeout_ms=500, telemetry
     return p, fw, hal, host
 
 
+def up_link(m, timeout_ms=500, ident=bytes(39)):
+    """A BoardLink whose link is already up (past the RECOVER_FRAMES that end the start-up
+    link fault): for tests of decoding, not of the session rules."""
+    link = L.BoardLink(timeout_ms, ident, m)
+    link.lost = 0
+    return link
+
+
 def charging_measurements():
     """A healthy plant: bus 15 V, AGM block at 12.4 V taking 0.8 A at 25 C, supercap at 12 V,
     USB converter up with a dedicated-port short on the data lines."""

@@ -70,7 +70,7 @@ def main():
 
     framer = Framer(L.MAX_BODY)
     now = 0
-    events = [0, 0, 0, 0]
+    events = [0, 0, 0, 0, 0, 0]
 
     def feed(data):
         for b in data:
@@ -84,7 +84,7 @@ def main():
     for seq in range(200):
         vals = [rnd(1 << 20) - (1 << 19) for _ in range(10)]
         s = seq - 5 if seq % 37 == 36 else seq  # now and then an old sequence number
-        w = bytearray(meas_wire(framer, s, vals, rnd(8), rnd(1 << 30)))
+        w = bytearray(meas_wire(framer, s, vals, rnd(8), 50 * s + rnd(50)))  # t_ms advances
         op = rnd(10)
         if op == 0 and len(w) > 3:  # drop a byte inside the frame
             i = 1 + rnd(len(w) - 2)

@@ -185,3 +185,33 @@ def test_virtual_board_gets_the_stub_layer():
     m = Measurements()
     h.read(m)
     assert m.bus_mv == 0
+
+
+def test_an_error_at_start_up_still_reaches_the_safe_state(tmp_path, monkeypatch):
+    # issue 14, finding 2: MemoryError in profile_load before the HAL existed left the pins
+    # as they were; now storage and USB go off and the dump load on, and fault.log says why
+    import json
+
+    from boards import main as fw_main
+    from controller.compat import ConfigError
+    slot = tmp_path / "sr_b"
+    slot.mkdir()
+    hw = dict(board.load("virtual").hw, mode="link")
+    (slot / "hw.json").write_text(json.dumps(hw))
+    (slot / "manifest.json").write_text("{}")
+    (slot / "profile.json").write_text('{"battery": {"float_v_per_cell": 9}}')
+    calls = []
+
+    class Hal:
+        def __init__(self, hw):
+            calls.append(("make", hw["watchdog_ms"]))
+
+        def safe(self, dump_on):
+            calls.append(("safe", dump_on))
+
+    monkeypatch.setattr(hal, "make", Hal)
+    monkeypatch.chdir(tmp_path)  # no boot_target.txt here: nothing to fall back to
+    with pytest.raises(ConfigError, match="float_v_per_cell"):
+        fw_main.run(str(slot))
+    assert calls == [("make", 0), ("safe", True)]  # no watchdog started, dump load on
+    assert "start-up failed" in (slot / "fault.log").read_text()

@@ -72,3 +72,44 @@ def test_flash_errors_exit_2_with_a_message(spinrail, capsys):
     assert "no such board file" in capsys.readouterr().err
     assert spinrail(["monitor", "--port", "/dev/null", "--feed", "volts=3"]) == 2
     assert "--feed volts: unknown measurement" in capsys.readouterr().err
+
+
+def test_duplicate_keys_are_refused_in_flash_profiles_and_board_files(spinrail, tmp_path,
+                                                                      capsys):
+    # issue 14, finding 7: duplicate keys were last-wins, and such a profile flashed
+    prof = tmp_path / "dup.json"
+    prof.write_text('{"battery": {"float_v_per_cell": 2.25, "float_v_per_cell": 2.3}}')
+    rc = spinrail(["flash", "--board", "virtual", "--port", "/dev/spinrail-none",
+                   "--profile", str(prof)])
+    err = capsys.readouterr().err
+    assert rc == 2 and 'duplicate key "float_v_per_cell"' in err and "nothing copied" in err
+    from boards import board
+    doc = (board.BOARDS_DIR / "virtual.json").read_text()
+    bad = tmp_path / "b.json"
+    bad.write_text(doc.replace('"heap_kb"', '"name": "twice",\n  "heap_kb"', 1))
+    rc = spinrail(["board", "check", str(bad)])
+    err = capsys.readouterr().err
+    assert rc == 2 and 'duplicate key "name"' in err and str(bad) in err
+
+
+def test_board_virtual_stops_on_sigint_even_started_with_it_ignored(tmp_path):
+    # issue 14, finding 11: `board virtual` ignored SIGINT (started as a background job,
+    # which inherits SIGINT ignored)
+    import signal
+    import subprocess
+    import sys
+    import time
+    code = "import sys; from host_sim.cli import main; sys.exit(main(sys.argv[1:]))"
+    proc = subprocess.Popen(
+        [sys.executable, "-c", code, "board", "virtual", "--dir", str(tmp_path)],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_IGN))
+    try:
+        assert proc.stdout.readline().startswith("/dev/")
+        time.sleep(0.3)
+        proc.send_signal(signal.SIGINT)
+        assert proc.wait(timeout=15) == 0
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()

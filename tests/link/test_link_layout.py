@@ -10,6 +10,8 @@ from controller.crc16 import crc16
 from controller.signals import Commands, Measurements
 from host_sim.seriallink import CmdFrame, Hello, Telemetry
 
+from .fakes import up_link
+
 i29 = st.integers(-(1 << 29), (1 << 29) - 1)
 u16 = st.integers(0, 0xFFFF)
 u30 = st.integers(0, (1 << 30) - 1)
@@ -42,7 +44,7 @@ def push_all(link, body, now_ms=0):
        st.lists(st.integers(-32768, 32767), min_size=12, max_size=12), st.integers(0, 7), u30, u16)
 def test_host_meas_decodes_on_the_board(vals, n_taps, cells, flags, t_ms, seq):
     m = Measurements()
-    link = L.BoardLink(500, bytes(39), m)
+    link = up_link(m)
     payload = struct.pack(L.MEAS_FMT, flags, t_ms, *vals, n_taps, *cells)
     evs = push_all(link, body_of(L.T_MEAS, seq, payload))
     assert evs == [L.EV_STEP if flags & L.F_STEP else L.EV_MEAS]
@@ -57,7 +59,7 @@ def test_host_meas_decodes_on_the_board(vals, n_taps, cells, flags, t_ms, seq):
 @given(st.integers(0, 9), st.sampled_from([1 << 29, (1 << 31) - 1, -(1 << 29) - 1, -(1 << 31)]))
 def test_meas_values_beyond_small_int_range_are_dropped(k, bad):
     m = Measurements()
-    link = L.BoardLink(500, bytes(39), m)
+    link = up_link(m)
     vals = [0] * 10
     vals[k] = bad
     payload = struct.pack(L.MEAS_FMT, 0, 0, *vals, 0, *([0] * 12))
@@ -67,7 +69,7 @@ def test_meas_values_beyond_small_int_range_are_dropped(k, bad):
 
 def test_meas_wrong_length_unknown_type_and_bad_crc_are_counted():
     m = Measurements()
-    link = L.BoardLink(500, bytes(39), m)
+    link = up_link(m)
     good = struct.pack(L.MEAS_FMT, 0, 0, *([1] * 10), 0, *([0] * 12))
     assert push_all(link, body_of(L.T_MEAS, 1, good[:-1])) == []
     assert push_all(link, body_of(0x55, 2, good)) == []
@@ -101,7 +103,7 @@ def test_board_cmd_frame_reads_back_with_struct(cd, ticks, now_ms, ack):
     c = Commands()
     for k, v in cd.items():
         setattr(c, k, v)
-    link = L.BoardLink(500, bytes(39), Measurements())
+    link = up_link(Measurements())
     link.meas_seq = ack
     t, seq, payload = decode_wire(link.tx.out, link.cmd_frame(c, ticks, now_ms))
     assert t == L.T_CMD and seq == 0
@@ -119,7 +121,7 @@ def test_board_telemetry_reads_back_with_struct(cd, vals, ticks, now_ms, exc, la
     m = Measurements()
     for k, v in zip(L.MEAS_FIELDS, vals):
         setattr(m, k, v)
-    link = L.BoardLink(500, bytes(39), m)
+    link = up_link(m)
     link.rx_crc = 70000  # counters wrap at 16 bits on the wire
     t, seq, payload = decode_wire(link.tx.out, link.telem_frame(m, c, ticks, now_ms, exc, late))
     v = Telemetry(seq, payload).values
@@ -134,7 +136,7 @@ def test_board_telemetry_reads_back_with_struct(cd, vals, ticks, now_ms, exc, la
 def test_hello_round_trip():
     ident = L.make_ident(bytes.fromhex("0123456789abcdef00"), bytes.fromhex("fedcba9876543210"),
                          L.MODE_LINK, 50, 500, 250, "rp2040_pico")
-    link = L.BoardLink(500, ident, Measurements())
+    link = up_link(Measurements(), ident=ident)
     payload = struct.pack(L.HELLO_FMT, L.PROTO, 0xBEEF)
     assert push_all(link, body_of(L.T_HELLO, 77, payload)) == [L.EV_HELLO]
     t, seq, out = decode_wire(link.tx.out, link.hello_frame())
