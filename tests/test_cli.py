@@ -209,7 +209,7 @@ def test_a_failed_write_keeps_the_previous_set_and_leaves_no_temporary_files(tmp
     before = {p.name: p.read_bytes() for p in out.iterdir()}
     assert sorted(before) == ["report.png", "summary.json", "timeseries.csv"]
 
-    def full(result, path):
+    def full(result, path, *rest):
         raise OSError(errno.ENOSPC, "No space left on device")
 
     monkeypatch.setattr(report, "write", full)
@@ -227,7 +227,7 @@ def test_a_kill_while_writing_leaves_the_old_set_and_the_next_run_tidies(tmp_pat
     assert run(["simulate", scen, "--out", str(out), "--quiet"], capsys)[0] == 0
     before = {p.name: p.read_bytes() for p in out.iterdir()}
     code = ("import os, signal; from host_sim import report, cli\n"
-            "report.write = lambda r, p: os.kill(os.getpid(), signal.SIGKILL)\n"
+            "report.write = lambda r, p, *v: os.kill(os.getpid(), signal.SIGKILL)\n"
             "cli.main(['simulate', %r, '--out', %r, '--quiet', '--every', '2'])" % (scen, str(out)))
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True)
     assert proc.returncode == -9
