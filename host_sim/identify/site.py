@@ -1,12 +1,11 @@
 # What `--write` does to a scenario: merge a section, validate the whole merged scenario with the
 # scenario's own loader (so nothing the schema rejects is ever written), list each field it
 # changed (old -> new), and check that the machine written can still charge the site's battery.
-import json
 import math
 import os
 
 from host_sim.errors import UserError
-from host_sim.fileio import write_json
+from host_sim.fileio import load_json, write_json
 
 # a stand-in drive for a fragment file that holds no drive (the scenario needs one to validate)
 _STANDIN_DRIVE = {"kind": "scripted", "points": [[0, 0]]}
@@ -98,9 +97,8 @@ def write_section(path, section, values):
     doc = {}
     if os.path.exists(path):
         try:
-            with open(path) as f:
-                doc = json.load(f)
-        except (OSError, ValueError, RecursionError) as e:
+            doc = load_json(path)  # the project's strict reader: duplicate keys, depth, size
+        except (OSError, ValueError) as e:
             raise UserError("%s: exists and is not readable JSON (%s); not overwritten" % (path, e))
         if not isinstance(doc, dict):
             raise UserError("%s: exists and is not a JSON object; not overwritten" % path)
