@@ -61,6 +61,7 @@ class RunResult:
         self.ticks = ticks
         self.wall_s = wall_s
         self.service = service  # dict: summary.json's "service" section (host_sim/service.py)
+        self.every = 1  # one series row per this many control periods
 
     @property
     def all_held(self):
@@ -102,10 +103,22 @@ class Progress:
             print(file=sys.stderr)
 
 
-def run(sc, progress=True, every=1, controller=None):
-    """Run scenario sc in closed loop. every: keep one row in `every` periods. controller:
-    anything with .m, .c and .tick(now_ms) in place of the in-process Supervisor (the
-    hardware-in-the-loop link, host_sim/hil.py)."""
+# Rows kept in memory when the caller names no decimation: a 7-day run at 50 ms (12 million
+# periods) keeps one row in 61, about 200,000 rows of 29 doubles (46 MB), where keeping every
+# period took about 650 B each (8 GB). The limit check and the service meter see every period.
+MAX_ROWS = 200_000
+
+
+def auto_every(n_periods):
+    """One row in this many periods keeps a run of n_periods within MAX_ROWS rows."""
+    return max(1, -(-n_periods // MAX_ROWS))
+
+
+def run(sc, progress=True, every=None, controller=None):
+    """Run scenario sc in closed loop. every: keep one row in `every` periods (None: every
+    period up to MAX_ROWS rows, then decimated evenly; RunResult.every says what was used).
+    controller: anything with .m, .c and .tick(now_ms) in place of the in-process Supervisor
+    (the hardware-in-the-loop link, host_sim/hil.py)."""
     p = sc.profile
     sup = controller if controller is not None else Supervisor(p)
     plant = Plant(sc)
@@ -114,7 +127,11 @@ def run(sc, progress=True, every=1, controller=None):
     n = int(round(sc.duration_s * 1000.0 / period_ms))
     checker = LimitChecker.for_scenario(sc)  # judged from the profile document, not from p
     meter = ServiceMeter(sc, plant, dt_s)
-    rows = []
+    if every is None:
+        every = auto_every(n)
+    # one column a row of this buffer: each kept period is written in place, nothing grows
+    rows = np.empty((len(COLUMN_NAMES), -(-n // every)))
+    j = 0
     prog = Progress("simulate %s" % sc.name, n, progress)
     now_ms = CLOCK_START_MS
     m, c = sup.m, sup.c
@@ -130,7 +147,8 @@ def run(sc, progress=True, every=1, controller=None):
         checker.check(t_s, s, c, c.stage)
         meter.period(t_s, s, c)
         if k % every == 0:
-            rows.append(_row(s, c, checker.doc, meter.p_best))
+            rows[:, j] = _row(s, c, checker.doc, meter.p_best)
+            j += 1
         now_ms = (now_ms + period_ms) & TICKS_MASK
         if (k & 255) == 0:
             prog.update(k)
@@ -139,9 +157,10 @@ def run(sc, progress=True, every=1, controller=None):
     led = plant.ledger()
     limits = checker.finish(n * dt_s, led["balance_error_pct"])
     service = meter.finish(led, n * dt_s)
-    series = {name: np.array([r[i] for r in rows], dtype=float)
-              for i, name in enumerate(COLUMN_NAMES)}
-    return RunResult(sc, series, limits, led, n, wall, service)
+    series = {name: rows[i, :j] for i, name in enumerate(COLUMN_NAMES)}
+    res = RunResult(sc, series, limits, led, n, wall, service)
+    res.every = every
+    return res
 
 
 def _row(s, c, lims, p_best=math.nan):

@@ -69,6 +69,7 @@ def summary(result):
         "duration_s": sc.duration_s,
         "seed": sc.seed,
         "ticks": result.ticks,
+        "series_every": result.every,  # one timeseries row per this many control periods
         "wall_s": round(result.wall_s, 3),
         "sim_speedup": round(result.speedup(), 1),
         "all_held": result.all_held,
@@ -96,8 +97,7 @@ def verdict(all_held, warnings):
 
 
 def _every(result):
-    n = len(result.series["t_s"])
-    return result.ticks / n if n else 1
+    return result.every
 
 
 def print_table(summ, out=None):
@@ -177,7 +177,7 @@ def print_service(sv, out=sys.stdout):
           file=out)
 
 
-def simulate(name_or_path, out_dir, every=1, progress=True):
+def simulate(name_or_path, out_dir, every=None, progress=True):
     sc = load(name_or_path)
     with OutputSet(out_dir) as out:  # --out checked and locked before the long run
         result = runner.run(sc, progress=progress, every=every)
@@ -210,7 +210,7 @@ def finish(result, summ, out_dir):
 
 def cmd_simulate(args):
     caution()
-    if args.every < 1:
+    if args.every is not None and args.every < 1:
         raise UserError("--every = %d: allowed 1 or more" % args.every)
     result, summ = simulate(args.scenario, args.out, every=args.every, progress=not args.quiet)
     return finish(result, summ, args.out)
@@ -240,8 +240,10 @@ def register(sub):
                     "docs/simulate.md." % names)
     sp.add_argument("scenario", metavar="SCENARIO", help="scenario file or built-in name")
     sp.add_argument("--out", required=True, help="output folder (created if missing)")
-    sp.add_argument("--every", type=int, default=1,
-                    help="keep one timeseries row in N control periods (default 1: every period)")
+    sp.add_argument("--every", type=int, default=None, metavar="N",
+                    help="keep one timeseries row in N control periods (default: every period "
+                         "up to %d rows, then evenly fewer, so a week-long run stays small; the "
+                         "limits and service figures always see every period)" % runner.MAX_ROWS)
     sp.add_argument("--quiet", action="store_true", help="no progress on stderr")
     sp.set_defaults(func=cmd_simulate)
     dp = sub.add_parser(
