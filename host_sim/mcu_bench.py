@@ -228,8 +228,9 @@ def _parse(out):
     return machine, golden, vec
 
 
-def collect(log=None, src=None):
-    """The mcu_* figures for `spinrail bench` (armv6m code, the qemu_m0 board), or a reason."""
+def collect(log=None, src=None, quick=False):
+    """The mcu_* figures for `spinrail bench` (armv6m code, the qemu_m0 board), or a reason.
+    quick: the heap floor is not bisected (mcu_heap_floor_kb None: about two minutes)."""
     say = log or (lambda m: None)
     try:
         fw = emulate.build(src, log=say)
@@ -243,8 +244,8 @@ def collect(log=None, src=None):
         res["mcu_instructions_per_tick_mppt"] = round(instructions_per_tick(
             fw, d, profile="hut_wind.json"))
         res["mcu_alloc_bytes_per_tick"] = alloc_bytes_per_tick(fw, d)
-        say("bench: heap floor on the emulated board ...")
-        res["mcu_heap_floor_kb"] = heap_floor_kb(fw, d, log=say)
+        say("bench: heap floor on the emulated board (about two minutes) ...")
+        res["mcu_heap_floor_kb"] = None if quick else heap_floor_kb(fw, d, log=say)
     ipt = res["mcu_instructions_per_tick"]
     # an estimate: one instruction per cycle at 125 MHz (flash wait states, the M0+'s slower
     # multi-cycle loads and branches make a real RP2040 slower than this)

@@ -18,7 +18,7 @@ from tests.mcu.conftest import BOARDS
 
 pytestmark = pytest.mark.micropython
 ROOT = Path(__file__).resolve().parents[2]
-GOLDEN_TICKS = 3000
+GOLDEN_TICKS = 2000
 
 
 @pytest.fixture(scope="module")
@@ -57,16 +57,16 @@ def _short(name, seconds):
 
 
 @pytest.mark.parametrize("board", BOARDS)
-def test_flash_then_hil_equals_simulate(board, emu_fw, tmp_path):
-    from host_sim import deploy
-    with emulate.EmulatedBoard(emu_fw, tmp_path, save=False) as eb:
-        first = deploy.flash(eb.port, board)
-        again = deploy.flash(eb.port, board)  # the other slot, switched last
-        assert (first.slot, again.slot, again.previous) == ("sr_a", "sr_b", "sr_a")
-        from host_sim.seriallink import SerialLink
+def test_flashed_board_boots_and_hil_equals_simulate(board, emu_fw, flashed_image):
+    # flashed_image: `spinrail flash` to an empty board (slot sr_a, verified, switched last);
+    # the emulator was stopped, its disk saved, and now boots from that flash image
+    from host_sim.seriallink import SerialLink
+    folder, flashed = flashed_image(board)
+    assert (flashed.slot, flashed.previous) == ("sr_a", "")
+    with emulate.EmulatedBoard(emu_fw, folder, save=False) as eb:
         with SerialLink(eb.port) as link:
             h = link.hello(timeout_s=15.0)
-        assert h.board == board and h.fw_hash == again.fw_sha256[:16]
+        assert h.board == board and h.fw_hash == flashed.fw_sha256[:16]
         sc = _short("demo", 8.0)
         _, figures, ctl = run_hil(sc, eb.port, progress=False)
     ref = Recording(sc.profile)
@@ -84,15 +84,19 @@ def test_tick_allocates_nothing_on_the_board(board, emu_fw, flashed_image):
         assert mcu_bench.alloc_bytes_per_tick(emu_fw, folder, 1000, profile) == 0, profile
 
 
-def test_flashed_files_survive_a_restart_of_the_emulator(emu_fw, tmp_path):
-    # the RAM disk is saved to flash.img on stop and loaded on start: a flashed board boots
-    # its firmware again, like a board's flash after a power cycle
+def test_a_second_flash_after_a_restart_takes_the_other_slot(emu_fw, flashed_image, tmp_path):
+    # the RAM disk is saved to flash.img on stop and loaded on start (the first flash is in
+    # it): a second flash writes sr_b, switches last, and the board boots it
+    import shutil
     from host_sim import deploy
     from host_sim.seriallink import SerialLink
+    folder, first = flashed_image("qemu_m0")
+    shutil.copy2(folder + "/flash.img", tmp_path / "flash.img")  # the shared image stays as is
     with emulate.EmulatedBoard(emu_fw, tmp_path) as eb:
-        r = deploy.flash(eb.port, "qemu_m0")
+        again = deploy.flash(eb.port, "qemu_m0", timeout_s=15.0)
+        assert (again.slot, again.previous) == ("sr_b", "sr_a")
     assert (tmp_path / "flash.img").stat().st_size == emulate.DISK_BYTES
     with emulate.EmulatedBoard(emu_fw, tmp_path, save=False) as eb:
         with SerialLink(eb.port) as link:
             h = link.hello(timeout_s=15.0)
-    assert h.fw_hash == r.fw_sha256[:16] and h.board == "qemu_m0"
+    assert h.fw_hash == again.fw_sha256[:16] and h.board == "qemu_m0"
