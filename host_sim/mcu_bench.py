@@ -21,8 +21,8 @@ from host_sim.common import ROOT
 from host_sim.errors import UserError
 
 SCRIPT = ROOT / "host_sim" / "mp_bench.py"
-_HELLO_S = 8.0  # boot, profile load and validation on the emulated core (about 1 s)
-_REPLY_S = 3.0
+_HELLO_S = 15.0  # boot and profile load on the emulated core: about 1 s, far more on a busy machine
+_REPLY_S = 10.0  # a lock-step reply takes about 12 ms; a busy machine stalls qemu for seconds
 
 
 def flash_image(fw, board_name, folder, profile=None, log=None):
