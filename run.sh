@@ -4,7 +4,8 @@
 #   ./run.sh test [PYTEST ARGS] run the whole test suite
 # Both create .venv and install the project with its test extra on first use (and again when
 # pyproject.toml changes). `test` also installs the Debian packages the outside checks use
-# (ngspice; valgrind for the benchmarks) when they are missing and this user may install.
+# (ngspice; valgrind for the benchmarks; gcc-arm-none-eabi, libnewlib-arm-none-eabi and
+# qemu-system-arm for the emulated 32-bit boards) when they are missing and this user may install.
 set -euo pipefail
 cd "$(dirname "$0")"
 VENV=.venv
@@ -32,12 +33,17 @@ setup_system() {
   local missing=()
   command -v ngspice >/dev/null 2>&1 || missing+=(ngspice)
   command -v valgrind >/dev/null 2>&1 || missing+=(valgrind)
+  # the emulated 32-bit boards (tests/mcu, spinrail board emulate)
+  command -v arm-none-eabi-gcc >/dev/null 2>&1 || missing+=(gcc-arm-none-eabi)
+  [ -e /usr/lib/arm-none-eabi/include/stdio.h ] || [ -e /usr/include/newlib/stdio.h ] ||
+    missing+=(libnewlib-arm-none-eabi)
+  command -v qemu-system-arm >/dev/null 2>&1 || missing+=(qemu-system-arm)
   [ ${#missing[@]} -eq 0 ] && return 0
   local sudo=""
   [ "$(id -u)" = 0 ] || sudo="sudo -n"
   if command -v apt-get >/dev/null 2>&1 && { [ -z "$sudo" ] || sudo -n true 2>/dev/null; }; then
     echo "run.sh: installing ${missing[*]} (Debian packages)" >&2
-    { $sudo apt-get update -qq && DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq "${missing[@]}"; } >&2 ||
+    { $sudo apt-get update -qq && DEBIAN_FRONTEND=noninteractive $sudo apt-get install -y -qq --no-install-recommends "${missing[@]}"; } >&2 ||
       echo "run.sh: could not install ${missing[*]}; the tests that need them will be skipped" >&2
   else
     echo "run.sh: ${missing[*]} missing and cannot be installed here (apt-get install ${missing[*]});" \

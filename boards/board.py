@@ -7,7 +7,7 @@ import json
 import math
 from pathlib import Path
 
-from boards.chips import CHIPS
+from boards.chips import CHIPS, HEAP_KB, LINK_ONLY
 from controller.compat import ConfigError, to_int
 
 BOARDS_DIR = Path(__file__).resolve().parent
@@ -38,9 +38,10 @@ class Board:
         self.chip = doc["chip"]
         self.mode = doc.get("mode", "standalone")
         self.mpy_arch = doc.get("mpy_arch")
-        self.heap_kb = doc.get("heap_kb", 192)
+        self.heap_kb = doc.get("heap_kb", HEAP_KB.get(self.chip, (0, 0, None))[2])
         self.link_timeout_ms = hw["link_timeout_ms"]
         self.virtual = self.chip == "unix"
+        self.emulated = self.chip == "mps2_an385"  # `spinrail board emulate`
 
 
 def board_path(name_or_path):
@@ -140,16 +141,19 @@ class _Checker:
         hw["watchdog_ms"] = int(wdt)
         hw["telemetry_ms"] = int(_num(d, "", "telemetry_ms", 0, 60000, 500, integer=True))
         hw["link_timeout_ms"] = int(_num(d, "", "link_timeout_ms", 50, 60000, 500, integer=True))
-        if chip_name == "unix":
-            _num(d, "", "heap_kb", 32, 4096, 192, integer=True)
+        if chip_name in LINK_ONLY:
+            lo, hi, default = HEAP_KB[chip_name]
+            _num(d, "", "heap_kb", lo, hi, default, integer=True)
             for sec in ("adc", "inputs", "pwm", "enables"):
                 if d.get(sec):
-                    _bad(sec, d[sec], "must be empty on the virtual board (no pins)")
+                    _bad(sec, d[sec], "must be empty on %s (no pins)" % (
+                        "the virtual board" if chip_name == "unix" else "an emulated board"))
             hw.update(adc_read="none", adc_fs_mv=0, atten=-1, mux=None, inputs=[], ntc=[],
                       pwm=[], enables=[])
         else:
             if "heap_kb" in d:
-                _bad("heap_kb", d["heap_kb"], "only for the virtual board (a real board's heap "
+                _bad("heap_kb", d["heap_kb"], "only for the virtual and emulated boards (a real "
+                     "board's heap "
                      "is what its firmware leaves)")
             self._adc(hw)
             self._inputs(hw)

@@ -84,4 +84,15 @@ UNIX = {
     "modes": ("link",),  # no sensors: measurements come only over the link
 }
 
-CHIPS = {"rp2040": RP2040, "esp32": ESP32, "unix": UNIX}
+# The emulated board (`spinrail board emulate`): MicroPython's qemu port on qemu's mps2-an385
+# machine, a Cortex-M3. It runs armv7m code (qemu_m3) or armv6m code (qemu_m0: the RP2040's
+# Cortex-M0+ instruction set, Thumb-1, a subset of the M3's). No ADC or PWM is modelled:
+# measurements arrive over the link and the commands go back over it, as on the virtual board.
+MPS2_AN385 = dict(UNIX, name="mps2_an385", mpy_arch=("armv7m", "armv6m"))
+
+CHIPS = {"rp2040": RP2040, "esp32": ESP32, "unix": UNIX, "mps2_an385": MPS2_AN385}
+# chips without pins: measurements only over the link, the stub hardware layer on the board
+LINK_ONLY = ("unix", "mps2_an385")
+# heap_kb allowed per link-only chip: the unix port's -X heapsize; the emulated board's heap at
+# start-up (at most the 140 KiB its firmware is built with)
+HEAP_KB = {"unix": (32, 4096, 192), "mps2_an385": (32, 140, 140)}

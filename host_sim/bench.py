@@ -13,6 +13,12 @@
 #                           board's arch (native code), and as bytecode for comparison: on the
 #                           unix port native code lives outside the GC heap, so heap_floor_kb
 #                           does not see it; on a microcontroller it may not (docs/performance.md)
+#   mcu_*                   on the emulated 32-bit board (host_sim/mcu_bench.py, qemu_m0:
+#                           armv6m code on qemu's Cortex-M3): instructions per tick counted
+#                           with qemu -icount shift=0 (default and MPPT profiles), bytes
+#                           allocated per tick, the heap floor, and each period's share at
+#                           125 MHz (an estimate: one instruction per cycle); mcu_skipped says
+#                           why when there is no MicroPython source or toolchain
 #   sim_speedup, vs_ngspice, vs_ngspice_error_pct, batch_scenarios_per_s: the plant side
 #                           (sim_speedup_runs: each run's figure beside the median)
 import json
@@ -36,6 +42,10 @@ GOALS = {
     "heap_allocs_per_tick": ("<=", 0),
     "instructions_per_tick": ("<=", 25000),
     "heap_floor_kb": ("<=", 48),
+    "mcu_instructions_per_tick": ("<=", 25000),
+    "mcu_instructions_per_tick_mppt": ("<=", 25000),
+    "mcu_alloc_bytes_per_tick": ("<=", 0),
+    "mcu_heap_floor_kb": ("<=", 48),
     "sim_speedup": (">=", 500),
     "vs_ngspice": (">=", 100),
     "vs_ngspice_error_pct": ("<=", 2),
@@ -278,6 +288,9 @@ def collect(quick=False, log=print):
     log("bench: CPython ticks per second ...")
     res["cpython_ticks_per_s"] = round(cpython_ticks_per_s(5000 if quick else 20000))
     res["tick_code_bytes"] = tick_code_bytes()
+    log("bench: the emulated 32-bit board (builds its firmware once, then cached) ...")
+    from host_sim import mcu_bench
+    res.update(mcu_bench.collect(log=log, quick=quick))
     try:
         from host_sim import bench_plant
     except ImportError:

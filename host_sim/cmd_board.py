@@ -90,6 +90,46 @@ def cmd_board_virtual(args):
     return 0
 
 
+def default_emulated_dir(name):
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    return os.path.join(base, "spinrail", "emulated", name)
+
+
+def cmd_board_emulate(args):
+    from boards import board
+    from host_sim import emulate
+    try:
+        b = board.load(args.board)
+    except ConfigError as e:
+        raise UserError(str(e))
+    if not b.emulated:
+        raise UserError("%s: chip %s is not an emulated board (emulated: qemu_m3, qemu_m0)"
+                        % (b.path, b.chip))
+    folder = args.dir or default_emulated_dir(b.name)
+    fw = emulate.build(args.micropython_src, log=lambda m: _err("emulate: " + m))
+    heap_kb = args.heap_kb or b.heap_kb
+    eb = emulate.EmulatedBoard(fw, folder, heap_kb=heap_kb, icount=args.icount,
+                               log=lambda m: _err("emulate: " + m))
+
+    def _term(signum, frame):
+        raise KeyboardInterrupt
+    signal.signal(signal.SIGTERM, _term)  # stop cleanly (save the disk, stop qemu) on kill
+    signal.signal(signal.SIGINT, _term)  # also when started in the background (SIGINT ignored)
+    try:
+        port = eb.start()
+        print(port, flush=True)
+        _err("emulated board %s: port %s, %s code on a Cortex-M3 (qemu %s), heap %d KB, flash "
+             "image %s, firmware %s; Ctrl-C stops it" % (b.name, port, b.mpy_arch,
+                                                        emulate.MACHINE, heap_kb, eb.image,
+                                                        fw.folder))
+        eb.wait()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        eb.stop()
+    return 0
+
+
 def cmd_board_restart(args):
     from host_sim import deploy
     deploy.restart(args.port, timeout_s=args.timeout)
@@ -156,6 +196,25 @@ def register(sub):
                     "virtual board file's heap_kb)")
     bv.add_argument("-v", "--verbose", action="store_true", help="log soft reboots on stderr")
     bv.set_defaults(func=cmd_board_virtual)
+
+    be = bs.add_parser("emulate", help="build and start an emulated 32-bit board; print its port",
+                       description="Build MicroPython's qemu port with a writable filesystem "
+                       "(cached, keyed by the source and the build options), start it on qemu's "
+                       "emulated Cortex-M3 (mps2-an385) and print its serial port. flash, "
+                       "monitor and hil use it like a real board. Its files are kept in "
+                       "DIR/flash.img between runs. Runs until Ctrl-C or SIGTERM.")
+    be.add_argument("board", metavar="BOARD", help="qemu_m3 (armv7m code) or qemu_m0 (armv6m "
+                    "code, the RP2040's instruction set), or an emulated board file")
+    be.add_argument("--dir", default=None, help="folder for the board's flash image (default: "
+                    "%s)" % default_emulated_dir("BOARD"))
+    be.add_argument("--micropython-src", default=None, metavar="PATH", help="MicroPython source "
+                    "tree or .tar.gz (default: $SPINRAIL_MICROPYTHON_SRC, else "
+                    "../shared/vendor/micropython-src.tar.gz beside the project when present)")
+    be.add_argument("--heap-kb", type=int, default=None, help="GC heap for this start, at most "
+                    "140 (default: the board file's heap_kb)")
+    be.add_argument("--icount", action="store_true", help="count instructions: one guest "
+                    "instruction per nanosecond of board time (slower than real time)")
+    be.set_defaults(func=cmd_board_emulate)
 
     br = bs.add_parser("restart", help="break in and soft-reset a board into its firmware")
     br.add_argument("--port", required=True, help="serial port or pyserial URL")

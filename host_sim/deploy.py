@@ -30,7 +30,7 @@ STUB = ROOT / "boards" / "stub_main.py"
 BOARD_SOURCES = ("boards/__init__.py", "boards/failsafe.py", "boards/firmware.py",
                  "boards/hal.py", "boards/hal_machine.py", "boards/load.py", "boards/main.py")
 _TARGET = "boot_target.txt"
-_READ_TIMEOUT_S = 1.0
+_READ_TIMEOUT_S = 3.0  # per read: an emulated board on a busy machine can stall past 1 s mid raw paste
 
 _RM = """import os
 def _rm(p):

@@ -2,6 +2,9 @@
 #   mp_bench.py alloc N     -> bytes allocated over N steady-state ticks (gc disabled)
 #   mp_bench.py ticks N     -> runs N ticks (for callgrind: instructions of N ticks ...)
 #   mp_bench.py loop N      -> ... minus the same loop with the tick call left out
+#   mp_bench.py us N        -> board time (us) of N ticks and of the same loop without them, in
+#                              one boot (an emulated board under qemu -icount shift=0 counts
+#                              one guest instruction per ns: instructions = us x 1000)
 # The readings are generated with integer arithmetic so the loop itself allocates nothing.
 import gc
 import sys
@@ -70,6 +73,14 @@ def main(argv):
     elif mode == "loop":
         run(sup, n, 0, t)
         print(mode, n)
+    elif mode == "us":
+        import time
+        t1 = time.ticks_us()
+        run(sup, n, 1, t)
+        t2 = time.ticks_us()
+        run(sup, n, 0, t)
+        t3 = time.ticks_us()
+        print("us", time.ticks_diff(t2, t1), time.ticks_diff(t3, t2), n)
 
 
 if __name__ == "__main__":

@@ -27,3 +27,12 @@ def test_bench_json_prints_every_key(capsys, micropython):
         assert isinstance(res[k], (int, float)) and res[k] >= 0, (k, res[k])
     assert len(res["sim_speedup_runs"]) == 2
     assert res["machine"]
+    from host_sim import emulate
+    if not emulate.source_available():  # said so, not faked
+        assert "mcu_skipped" in res and "mcu_instructions_per_tick" not in res
+        return
+    for k in ("mcu_instructions_per_tick", "mcu_instructions_per_tick_mppt",
+              "mcu_alloc_bytes_per_tick", "mcu_share_10ms_pct_est", "mcu_share_50ms_pct_est"):
+        assert isinstance(res[k], (int, float)) and res[k] >= 0, (k, res[k])
+    assert res["mcu_instructions_per_tick"] > 1000  # counted, not a stand-in zero
+    assert res["mcu_heap_floor_kb"] is None  # --quick does not bisect it

@@ -95,7 +95,7 @@ def test_rp2040_pwm_slice_rules(tmp_path):
     (("pwm", "batt_duty", "freq_hz"), 500000, "allowed 10 to 200000"),
     (("watchdog_ms",), 9000, "allowed 0 to 8388"),
     (("mpy_arch",), "xtensawin", "for rp2040: armv6m"),
-    (("chip",), "rp2350", "allowed one of esp32, rp2040, unix"),
+    (("chip",), "rp2350", "allowed one of esp32, mps2_an385, rp2040, unix"),
     (("inputs", "batt_ma", "mux"), 8, "allowed 0 to 7"),
     (("inputs", "batt_temp_dc", "ntc", "beta"), 100, "allowed 2000 to 6000"),
     (("link", "kind"), "spi", "stdio or uart"),
