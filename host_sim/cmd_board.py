@@ -208,8 +208,7 @@ def register(sub):
     be.add_argument("--dir", default=None, help="folder for the board's flash image (default: "
                     "%s)" % default_emulated_dir("BOARD"))
     be.add_argument("--micropython-src", default=None, metavar="PATH", help="MicroPython source "
-                    "tree or .tar.gz (default: $SPINRAIL_MICROPYTHON_SRC, else "
-                    "../shared/vendor/micropython-src.tar.gz beside the project when present)")
+                    "tree or .tar.gz at the pinned commit (default: $SPINRAIL_MICROPYTHON_SRC)")
     be.add_argument("--heap-kb", type=int, default=None, help="GC heap for this start, at most "
                     "140 (default: the board file's heap_kb)")
     be.add_argument("--icount", action="store_true", help="count instructions: one guest "

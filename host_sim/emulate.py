@@ -10,7 +10,7 @@
 #    a flashed board keeps its files between runs, like a board's flash.
 # The build is cached under cache_dir() keyed by the source's hash and the build options.
 # The MicroPython source is never part of this project: it comes from --micropython-src,
-# SPINRAIL_MICROPYTHON_SRC, or the shared vendor folder beside the project (source()).
+# SPINRAIL_MICROPYTHON_SRC (source()).
 import hashlib
 import json
 import os
@@ -32,8 +32,6 @@ from host_sim.errors import UserError
 # archive's COMMIT file); any tree whose ports/qemu has the same main.c and mphalport.c works.
 PINNED_COMMIT = "1c3c201149f37fe8d81246191b3127bb198d6306"
 ENV_SRC = "SPINRAIL_MICROPYTHON_SRC"
-# The one documented fallback: a shared folder beside the project (absent in a plain clone).
-_FALLBACK_SRC = ROOT.parent / "shared" / "vendor" / "micropython-src.tar.gz"
 
 MACHINE = "mps2-an385"
 FW_BOARD = "MPS2_AN385_FS"
@@ -219,8 +217,6 @@ def source(arg=None):
             if not p.exists():
                 raise UserError("%s %s: no such file or folder" % (what, p))
             return p
-    if _FALLBACK_SRC.exists():
-        return _FALLBACK_SRC
     raise UserError(missing_source_message())
 
 

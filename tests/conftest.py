@@ -15,6 +15,13 @@ ROOT = Path(__file__).resolve().parents[1]
 if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
+# The tests (never the tool) also look for the MicroPython source tarball that a development
+# checkout may have beside it, for the emulated 32-bit boards (tests/mcu, the bench keys); the
+# tool itself takes only --micropython-src or SPINRAIL_MICROPYTHON_SRC.
+_MP_SRC_BESIDE = ROOT.parent / "shared" / "vendor" / "micropython-src.tar.gz"
+if not os.environ.get("SPINRAIL_MICROPYTHON_SRC") and _MP_SRC_BESIDE.exists():
+    os.environ["SPINRAIL_MICROPYTHON_SRC"] = str(_MP_SRC_BESIDE)
+
 settings.register_profile("ci", max_examples=150, derandomize=True, deadline=None,
                           print_blob=True, suppress_health_check=[HealthCheck.too_slow])
 settings.register_profile("dev", max_examples=60, deadline=None, print_blob=True,

@@ -1,7 +1,7 @@
 # Fixtures for the emulated 32-bit boards (host_sim/emulate.py): the firmware, built once per
 # test session (and cached across runs, keyed by the source and build options), and one board
 # of each kind flashed as `spinrail flash` does. Without a MicroPython source (a clone without
-# the shared vendor folder and no SPINRAIL_MICROPYTHON_SRC) or without the Debian toolchain,
+# a source tarball beside the checkout and no SPINRAIL_MICROPYTHON_SRC) or without the Debian toolchain,
 # every test here is skipped, loudly: the 32-bit claims are then NOT tested on this machine.
 import os
 
