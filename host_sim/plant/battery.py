@@ -11,7 +11,7 @@
 # temperature) is what remains: the taper the charger's tail-current rule watches for.
 # OCV: a cubic fitted to the BCI (Battery Council International) open-circuit voltage table
 # (flooded, rested, 26.7 C, as commonly reproduced), scaled by cells / 6; tests/plant/test_parts.py
-# holds it within 0.05 V of the table.
+# holds it within 0.01 V of the table.
 # Energy: stored = integral of OCV x I_main (chemical) + 1/2 C_p v_p^2; every other watt is
 # heat (R0, R_p, gassing) that also warms the block.
 import math

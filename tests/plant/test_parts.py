@@ -80,13 +80,14 @@ def test_diode_spice_model_is_the_same_curve():
 # ---- lead-acid battery ---------------------------------------------------------------------
 
 # Battery Council International open-circuit voltage table (flooded, rested, 26.7 C) as
-# commonly reproduced: state of charge -> 12 V block volts.
+# commonly reproduced: state of charge -> 12 V block volts. The fitted cubic was seen within
+# 0.005 V of every row; the check allows 0.01 V (the table's own resolution).
 BCI_TABLE = [(1.00, 12.65), (0.75, 12.45), (0.50, 12.24), (0.25, 12.06), (0.00, 11.89)]
 
 
 @pytest.mark.parametrize("soc,v", BCI_TABLE)
 def test_ocv_matches_bci_table(soc, v):
-    assert abs(ocv_block(soc) - v) <= 0.05
+    assert abs(ocv_block(soc) - v) <= 0.01
 
 
 def test_ocv_monotonic_and_scales_with_cells():
