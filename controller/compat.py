@@ -26,13 +26,13 @@ except ImportError:  # CPython: the code emitters are MicroPython's; here they c
 
 MICROPYTHON = sys.implementation.name == "micropython"
 
-# Viper state (GUIDE: the tick's cost): the tick's objects keep their state and their profile
+# Viper state (DEVELOPERS.md: the cost model): the tick's objects keep their state and their profile
 # numbers in array('i') buffers, read and written in @micropython.viper code through ptr32()
 # as machine loads and stores instead of dictionary look-ups. On a 64-bit port a ptr32 load
 # is zero-extended, so a slot that can hold a negative value is read back with the wrap
 # idiom ((x + _S_HALF) & _S_MASK) - _S_HALF, exact for values within +/-2**29 on any word
 # size (the constants are small ints: viper rejects larger literals). Viper ints are machine
-# words: every intermediate stays within +/-2**30 anyway (GUIDE §2), so a 32-bit board and
+# words: every intermediate stays within +/-2**30 anyway (DEVELOPERS.md), so a 32-bit board and
 # CPython agree. Viper's // and % floor as Python's do (checked on the unix port).
 
 # Millisecond clock period. Boards wrap ticks_ms() at 2**30 (the small-int range on 32-bit

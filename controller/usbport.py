@@ -2,11 +2,13 @@
 # port's load switch closes only after VBUS and the data lines have matched the configured
 # signalling scheme for the debounce time, and opens in the same tick either stops matching.
 #
-# Levels (shared/reference/check-values.md):
-#  - dcp: BC1.2 1.4.7 dedicated charging port, D+ shorted to D- (0-200 ohm). Before the port
-#    closes the board sources its D+ probe (V_DP_SRC 0.5-0.7 V, BC1.2 1.4.2) and D- must follow
-#    above V_DAT_REF's top, 0.4 V (BC1.2 1.4.4). While the port is on (probe off) the lines must
-#    stay equal and below V_LGC's bottom, 0.8 V.
+# Levels (BC1.2 = USB Battery Charging Specification Rev. 1.2; its values are in chapter 5,
+# "Parameter Values", named here by table title):
+#  - dcp: dedicated charging port (BC1.2 1.4.7, the definition), D+ shorted to D- (R_DCP_DAT
+#    0-200 ohm, ch. 5 resistances table). Before the port closes the board sources its D+ probe
+#    (V_DP_SRC 0.5-0.7 V, ch. 5 DC electrical characteristics) and D- must follow above
+#    V_DAT_REF's top, 0.4 V (same table). While the port is on (probe off) the lines must
+#    stay equal and below V_LGC's bottom, 0.8 V (same table).
 #  - div_*: resistor dividers from VBUS giving D+/D- levels of 2.0 V or 2.7 V at VBUS 5.00 V
 #    (common practice). The windows scale with the measured VBUS (the dividers track it).
 #  - short_1v2: D+ tied to D-, biased to about 1.2 V at VBUS 5.00 V (common practice).
@@ -32,10 +34,10 @@ _VNOM_MV = const(5000)  # divider levels are quoted at VBUS = 5.00 V
 _L20 = const(2000)
 _L27 = const(2700)
 _L12 = const(1200)
-_DP_SRC_MIN_MV = const(500)  # BC1.2 1.4.2 V_DP_SRC
+_DP_SRC_MIN_MV = const(500)  # BC1.2 ch. 5 DC table: V_DP_SRC
 _DP_SRC_MAX_MV = const(700)
-_DAT_REF_MAX_MV = const(400)  # BC1.2 1.4.4 V_DAT_REF
-_LGC_MIN_MV = const(800)  # BC1.2 1.4.4 V_LGC
+_DAT_REF_MAX_MV = const(400)  # BC1.2 ch. 5 DC table: V_DAT_REF
+_LGC_MIN_MV = const(800)  # BC1.2 ch. 5 DC table: V_LGC
 
 
 @micropython.viper

@@ -104,8 +104,8 @@ _HUMAN = {
                      "60-90 rpm, from memory)"),
     "torque_max_nm": N(35, 0.5, 300, "N m", "largest torque the person puts on the crank"),
     "power_start_w": N(150, 1, 2000, "W", "sustainable power when fresh"),
-    "power_sustained_w": N(75, 1, 1000, "W", "sustainable power after long effort (check-values.md: "
-                           "about 75 W for hours on pedals, 30-60 W arm cranking)"),
+    "power_sustained_w": N(75, 1, 1000, "W", "sustainable power after long effort (Malewicki 1983: "
+                           "about 75 W for hours on pedals; arm cranking 30-60 W, from memory)"),
     "fatigue_tau_s": N(300, 1, 86400, "s", "working time over which fresh power falls to sustained"),
     "recovery_tau_s": N(180, 1, 86400, "s", "rest time constant of recovery during pauses"),
     "effort": N(1.0, 0, 1.5, "1", "fraction of the sustainable power the person chooses to give"),
@@ -131,7 +131,7 @@ _GUST = {
 _WIND = {
     "rotor_radius_m": N(0.8, 0.05, 10, "m", "rotor radius (swept area pi r^2)"),
     "cp_max": N(0.40, 0.05, 0.593, "1", "peak power coefficient (typical 0.35-0.45)",
-                "the Betz limit 16/27 = 0.593 bounds any rotor"),
+                "the Betz limit 16/27 = 0.593 (Betz 1920) bounds any rotor"),
     "tsr_opt": N(6.0, 1, 15, "1", "tip-speed ratio at cp_max"),
     "runaway_ratio": N(1.6, 1.2, 3.0, "1", "no-load (runaway) tip-speed ratio over tsr_opt"),
     "air_density": N(1.2, 0.5, 1.5, "kg/m^3", "air density (about 1.0 at 2000 m)"),
@@ -190,9 +190,11 @@ _NETWORK = {
                 "(default: the profile's usb.scheme)"),
     "tol_pct": N(1.0, 0, 20, "%", "resistor tolerance; values drawn per seed within +/- this"),
     "dcp_short_ohm": N(None, 0, 200, "ohm", "D+ to D- resistance of the dcp scheme (null: drawn "
-                       "0-200 ohm per seed)", "BC1.2 1.4.7: R_DCP_DAT 0-200 ohm", nullable=True),
+                       "0-200 ohm per seed)", "BC1.2 ch. 5 resistances table: R_DCP_DAT 0-200 ohm",
+                       nullable=True),
     "leak_ohm": N(1e7, 1e3, 1e10, "ohm", "each line to ground (ADC input, ESD parts)"),
-    "probe_v": N(0.6, 0, 3.3, "V", "D+ probe source voltage", "BC1.2 1.4.2: V_DP_SRC 0.5-0.7 V"),
+    "probe_v": N(0.6, 0, 3.3, "V", "D+ probe source voltage",
+                 "BC1.2 ch. 5 DC table: V_DP_SRC 0.5-0.7 V"),
     "probe_ohm": N(10000, 100, 1e6, "ohm", "D+ probe source resistance"),
     "faults": L(_NET_FAULT, "assembly faults present from the start", 8),
 }
@@ -327,8 +329,8 @@ SCHEMA = {
         "cp_f_per_ah": N(15, 0.1, 1e4, "F/Ah", "polarisation capacitance per Ah"),
         "gas_i0_ma_per_ah": N(None, 0.01, 100, "mA/Ah", "gassing current per Ah at the onset "
                               "voltage and 25 C (default flooded 6, agm 4, gel 3)", nullable=True),
-        "gas_onset_v_per_cell": N(2.40, 2.2, 2.6, "V/cell", "gassing onset (check-values.md: "
-                                  "about 2.39-2.40 V/cell at 20-25 C, Linden, from memory)"),
+        "gas_onset_v_per_cell": N(2.40, 2.2, 2.6, "V/cell", "gassing onset (Linden's Handbook "
+                                  "of Batteries: about 2.39-2.40 V/cell at 20-25 C, from memory)"),
         "gas_slope_mv": N(40, 5, 300, "mV", "gassing current grows e-fold per this much cell voltage"),
         "gas_doubling_c": N(10, 2, 50, "C", "gassing current doubles per this many degrees"),
         "heat_j_per_k_ah": N(300, 10, 1e4, "J/K/Ah", "heat capacity per Ah"),

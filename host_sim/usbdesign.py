@@ -32,12 +32,12 @@ SERIES = {"E24": (E24, 10), "E96": (E96, 100)}
 DEFAULT_TOL_PCT = {"E24": 5.0, "E96": 1.0}
 
 VNOM = 5.0  # levels are quoted at VBUS 5.00 V (controller/usbport.py)
-# line levels at VBUS 5.00 V (check-values.md, data-line schemes: common practice); dcp has none
+# line levels at VBUS 5.00 V (data-line schemes in no standard: common practice); dcp has none
 LEVELS = {"div_2v0_2v7": (2.0, 2.7), "div_2v7_2v0": (2.7, 2.0), "div_2v7_2v7": (2.7, 2.7),
           "short_1v2": (1.2, 1.2), "dcp": None}
 SCHEMES = MATCH_NAMES[1:]  # a scheme's match code is 1 + its index (controller/usbport.py)
-DCP_LINK_MAX_OHM = 200.0  # BC1.2 1.4.7: R_DCP_DAT 0-200 ohm
-DP_SRC_V = (0.5, 0.7)  # BC1.2 1.4.2: V_DP_SRC
+DCP_LINK_MAX_OHM = 200.0  # BC1.2 ch. 5 resistances table: R_DCP_DAT 0-200 ohm
+DP_SRC_V = (0.5, 0.7)  # BC1.2 ch. 5 DC electrical characteristics: V_DP_SRC
 TOTAL_OHM = (50e3, 200e3)  # divider total: keeps the divider current at 25-100 uA (our choice)
 # the parts, named as the scenario names them (host_sim/scenario.py DIVIDER_RESISTORS)
 PARTS = ("dp_top", "dp_bottom", "dm_top", "dm_bottom", "between")
@@ -324,9 +324,10 @@ def report(res, prof_path):
         out.append("scheme %s: D+ %.1f V, D- %.1f V at VBUS 5.00 V (common practice)"
                    % (res["scheme"], lv[0], lv[1]))
     else:
-        out.append("scheme dcp: BC1.2 1.4.7 dedicated charging port: only a short of 0-200 ohm "
-                   "between D+ and D- (R_DCP_DAT); fit a 0 ohm link, no resistors to choose")
-    out.append("series %s, resistor tolerance +/- %g %%, VBUS %.2f-%.2f V (BC1.2 1.4.11 V_CHG)"
+        out.append("scheme dcp: BC1.2 dedicated charging port: only a short of 0-200 ohm "
+                   "between D+ and D- (R_DCP_DAT, BC1.2 ch. 5 resistances table); fit a 0 ohm "
+                   "link, no resistors to choose")
+    out.append("series %s, resistor tolerance +/- %g %%, VBUS %.2f-%.2f V (BC1.2 ch. 5 V_CHG)"
                % (res["series"], res["tolerance_pct"], res["vbus_v"][0], res["vbus_v"][1]))
     out.append("controller windows: +/- %d %% of each level scaled by VBUS, lines count as "
                "shorted within %d mV (profile %s)" % (res["line_tol_pct"], res["short_tol_mv"],
@@ -381,7 +382,7 @@ def cmd_usb_network(args):
     if not 1e3 <= args.leak_ohm <= 1e12:
         raise UserError("--leak-ohm = %g: allowed 1e3 to 1e12 ohm" % args.leak_ohm)
     if not DP_SRC_V[0] <= args.probe_v <= DP_SRC_V[1]:
-        raise UserError("--probe-v = %g: allowed 0.5 to 0.7 V (BC1.2 1.4.2 V_DP_SRC)"
+        raise UserError("--probe-v = %g: allowed 0.5 to 0.7 V (BC1.2 ch. 5 V_DP_SRC)"
                         % args.probe_v)
     if not 0 < args.probe_ohm <= 1e6:
         raise UserError("--probe-ohm = %g: allowed above 0 up to 1e6 ohm" % args.probe_ohm)
@@ -403,7 +404,7 @@ def register(sub):
         "usb-network", help="choose the USB data-line resistors and check them against the "
                             "controller's port check",
         description="Choose E-series resistor pairs for a USB data-line scheme, give the worst "
-                    "case over resistor tolerance and VBUS 4.75-5.25 V (BC1.2 1.4.11) by corner "
+                    "case over resistor tolerance and VBUS 4.75-5.25 V (BC1.2 V_CHG) by corner "
                     "enumeration and Monte Carlo, and check with the controller's own classifier "
                     "that every legal combination is accepted and the usual build mistakes "
                     "(decade-off resistor, swapped pair, open, short, wrong network) rejected. "

@@ -55,7 +55,7 @@ def test_unknown_target_is_refused(tmp_path, capsys):
 
 
 def test_limits_json_keys_and_a_worked_example(tmp_path, capsys):
-    # Battery University BU-403 (shared/reference/check-values.md): float 2.30 V/cell at 25 C,
+    # Battery University BU-403's worked example: float 2.30 V/cell at 25 C,
     # -3 mV/C/cell -> 2.27 V/cell at 35 C, i.e. 13.62 V for six cells.
     prof = tmp_path / "p.json"
     prof.write_text(json.dumps({"battery": {"chemistry": "agm", "float_v_per_cell": 2.30,

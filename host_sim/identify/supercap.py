@@ -252,7 +252,7 @@ def identify(log, rated_v=None, upper=UPPER_FRAC, lower=LOWER_FRAC, spread_pct=1
 
 def flag_cells(cells, spread_pct):
     """Mark cells whose C is more than spread_pct from the bank median (common practice), or
-    whose ESR exceeds twice the median (makers' end-of-life ESR 200 % criterion, check-values.md,
+    whose ESR exceeds twice the median (supercap makers' end-of-life criterion, ESR at 200 %,
     applied against the bank median: our reading)."""
     c_med = float(np.median([c.c_f for c in cells]))
     r_med = float(np.median([c.esr_ohm for c in cells]))

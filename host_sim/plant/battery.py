@@ -9,13 +9,14 @@
 # R_p grows as the plates fill (rp_full / (1 - soc)), so at a held absorption voltage the main
 # current falls towards zero and the gassing current (small, growing with voltage and
 # temperature) is what remains: the taper the charger's tail-current rule watches for.
-# OCV: a cubic fitted to the BCI table (flooded, rested, 26.7 C) in
-# shared/reference/check-values.md, scaled by cells / 6; the test holds it within 0.05 V.
+# OCV: a cubic fitted to the BCI (Battery Council International) open-circuit voltage table
+# (flooded, rested, 26.7 C, as commonly reproduced), scaled by cells / 6; tests/plant/test_parts.py
+# holds it within 0.01 V of the table.
 # Energy: stored = integral of OCV x I_main (chemical) + 1/2 C_p v_p^2; every other watt is
 # heat (R0, R_p, gassing) that also warms the block.
 import math
 
-# BCI table (check-values.md): state of charge -> 12 V block OCV, flooded, rested, 26.7 C
+# BCI table (as commonly reproduced): state of charge -> 12 V block OCV, flooded, rested, 26.7 C
 BCI_OCV = ((0.0, 11.89), (0.25, 12.06), (0.5, 12.24), (0.75, 12.45), (1.0, 12.65))
 
 

@@ -4,16 +4,19 @@
 # happens in begin_period(); torque() is called every sub-step and stays a few float ops.
 #
 #  - pedal / crank: a person with a torque limit, a power limit that falls with working time
-#    (fatigue, a Malewicki-type curve: fresh power decaying towards the sustained power,
-#    check-values.md: about 75 W sustained on pedals, 30-60 W arm cranking), a cadence they aim
-#    at (easing off above it), rests and changes of direction on a schedule; after each start
-#    the torque limit ramps up over start_ramp_s (nobody stamps full force from a standstill).
-#  - wind: rotor power P = 1/2 rho A v^3 Cp(lambda) with a cubic Cp(lambda) that peaks at
-#    cp_max at tsr_opt, has starting torque and reaches zero at runaway_ratio x tsr_opt;
-#    a gusty wind series drawn from the scenario's seed (Ornstein-Uhlenbeck turbulence plus
-#    1 - cos gusts).
+#    (fatigue, a Malewicki-type curve: fresh power decaying towards the sustained power;
+#    Malewicki 1983: about 75 W sustained for hours on pedals; arm cranking 30-60 W, from
+#    memory), a cadence they aim at (easing off above it), rests and changes of direction on
+#    a schedule; after each start the torque limit ramps up over start_ramp_s (nobody stamps
+#    full force from a standstill).
+#  - wind: rotor power P = 1/2 rho A v^3 Cp(lambda) (physics: the wind's kinetic energy flux
+#    through the swept area times the power coefficient) with a cubic Cp(lambda) that peaks
+#    at cp_max at tsr_opt (at most the Betz limit 16/27: Betz 1920, in any wind-energy text),
+#    has starting torque and reaches zero at runaway_ratio x tsr_opt; a gusty wind series
+#    drawn from the scenario's seed (Ornstein-Uhlenbeck turbulence plus 1 - cos gusts).
 #  - hydro: a turbine with a straight torque-speed line (stall torque to runaway speed), so
-#    its power peaks at half the runaway speed.
+#    its power peaks at half the runaway speed; that peak is P = rho g Q H eta (physics: the
+#    water's potential energy per second times the turbine's efficiency).
 #  - scripted: piecewise-linear speed (the drive holds the speed whatever it costs) or torque.
 import math
 

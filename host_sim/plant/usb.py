@@ -2,20 +2,26 @@
 #
 # Network: each data line has a resistor to VBUS (top) and to ground (bottom), the lines are
 # joined by `between`, each line leaks to ground (ADC input, ESD parts), and the board's
-# probe sources V_DP_SRC through probe_ohm into D+ while usb_probe is 1 (BC1.2 1.4.2).
-# Schemes (check-values.md): dcp = D+ shorted to D- through 0-200 ohm (BC1.2 1.4.7);
-# div_2v0_2v7 / div_2v7_2v0 / div_2v7_2v7 = dividers 75k/49.9k (2.0 V) and 43k/49.9k (2.7 V)
-# from 5.00 V; short_1v2 = lines tied, 100k/31.6k (1.20 V). Values drawn within tol_pct per
-# seed; faults: a resistor open, a line shorted to ground, the lines shorted together, a wrong
-# or decade-off value, the D+/D- networks swapped.
+# probe sources V_DP_SRC through probe_ohm into D+ while usb_probe is 1 (BC1.2 = USB Battery
+# Charging Specification Rev. 1.2, chapter 5, DC electrical characteristics table).
+# Schemes: dcp = D+ shorted to D- (BC1.2 1.4.7, the definition) through R_DCP_DAT 0-200 ohm
+# (BC1.2 ch. 5, resistances table); div_2v0_2v7 / div_2v7_2v0 / div_2v7_2v7 = dividers
+# 75k/49.9k (2.0 V) and 43k/49.9k (2.7 V) from 5.00 V; short_1v2 = lines tied, 100k/31.6k
+# (1.20 V): levels of common practice, in no standard; the E96 arithmetic is derived.
+# Values drawn within tol_pct per seed; faults: a resistor open, a line shorted to ground, the
+# lines shorted together, a wrong or decade-off value, the D+/D- networks swapped.
 # The two line voltages are linear in VBUS and in the probe voltage: solved as a 2 x 2 nodal
 # system when the network changes, then two multiply-adds per reading.
 #
 # Devices: a device reads the lines when the port switch connects it (probe off, as a phone
-# does its own detection) and draws what that signalling allows (check-values.md levels: DCP
-# 1.5 A per BC1.2, 2.0/2.7 -> 1 A, 2.7/2.0 -> 2.1 A, 2.7/2.7 -> 2.4 A, 1.2 V short -> 2 A,
-# anything else 0.5 A), capped by its own maximum and tapered by its own charger above
-# taper_soc. Below min_vbus_v it detaches and tries again after reattach_s.
+# does its own detection) and draws what that signalling allows: 2.0/2.7 -> 1 A, 2.7/2.0 ->
+# 2.1 A, 2.7/2.7 -> 2.4 A, 1.2 V short -> 2 A (common practice), anything else 0.5 A (a
+# configured USB 2.0 device's limit, from memory). DCP -> 1.5 A is the device, not the port:
+# BC1.2 lets a DCP be rated anywhere in I_DCP 0.5-5 A (ch. 5 DC table); 1.5 A was BC1.1's
+# DCP limit (from memory). The plant models the common phone that takes about 1.5 A from any
+# DCP (common practice), the load the 5 V converter must carry. Capped by the device's own
+# maximum and tapered by its own charger above taper_soc. Below min_vbus_v it detaches and
+# tries again after reattach_s.
 INF = float("inf")
 G_SHORT = 1.0 / 0.05  # a short is 50 mohm
 

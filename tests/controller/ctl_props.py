@@ -10,9 +10,9 @@ seconds) with exact fractions, and from the documents that define them:
                               voltage readable down to -full scale (to see a reversed battery);
                               cell taps plausible up to twice the cell rating
   controller/leadacid.py      temperature plausible from -40.0 to 85.0 C (open / shorted NTC)
-  BC1.2 (check-values.md)     V_DP_SRC 0.5-0.7 V (§1.4.2), V_DAT_REF top 0.4 V and V_LGC bottom
-                              0.8 V (§1.4.4), DCP = D+ shorted to D- (§1.4.7)
-  check-values.md             divider levels 2.0 / 2.7 / 1.2 V at VBUS 5.00 V, ratiometric
+  BC1.2 ch. 5 (DC table)      V_DP_SRC 0.5-0.7 V, V_DAT_REF top 0.4 V and V_LGC bottom 0.8 V
+                              (chapter 5 "Parameter Values"); DCP = D+ shorted to D- (§1.4.7)
+  common practice             divider levels 2.0 / 2.7 / 1.2 V at VBUS 5.00 V, ratiometric
 None of the controller's functions is called here. Each check_* raises AssertionError naming the
 tick, its readings and its commands.
 """
@@ -146,18 +146,18 @@ class Limits:
         while they were read."""
         shorted = abs(dp - dm) <= self.short_mv
         if self.scheme == "dcp":
-            if probe:  # BC1.2 §1.4.2 V_DP_SRC on D+, D- above V_DAT_REF's top (§1.4.4)
+            if probe:  # BC1.2 ch. 5: V_DP_SRC on D+, D- above V_DAT_REF's top
                 return shorted and 500 <= dp <= 700 and dm > 400
-            return shorted and dp < 800 and dm < 800  # below V_LGC's bottom (§1.4.4)
+            return shorted and dp < 800 and dm < 800  # below V_LGC's bottom (BC1.2 ch. 5)
         if probe:
             return False  # the board never probes for the other schemes
         dp_nom, dm_nom = SCHEME_LEVELS[self.scheme]
         if self.scheme == "short_1v2" and not shorted:
-            return False  # D+ tied to D- (check-values.md)
+            return False  # D+ tied to D- (common practice)
         return self._near(dp, dp_nom, vbus) and self._near(dm, dm_nom, vbus)
 
     def _near(self, x, nom_mv, vbus):
-        level = F(nom_mv) * vbus / 5000  # dividers track VBUS (check-values.md)
+        level = F(nom_mv) * vbus / 5000  # dividers track VBUS (derived)
         # +1 mV: readings and levels are whole millivolts
         return abs(x - level) <= level * self.line_tol + 1
 

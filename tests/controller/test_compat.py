@@ -6,7 +6,7 @@ from controller.compat import TICKS_MASK, TICKS_PERIOD, ticks_add, ticks_diff, t
 
 
 def test_period_is_the_32_bit_small_int_range():
-    # GUIDE §2: boards wrap ticks_ms() at 2**30, the small-int range on 32-bit ports
+    # DEVELOPERS.md: boards wrap ticks_ms() at 2**30, the small-int range on 32-bit ports
     assert TICKS_PERIOD == 2 ** 30
     assert TICKS_MASK == 2 ** 30 - 1
 

@@ -208,7 +208,7 @@ def alloc_run(micropython, tmp_path, variant, n, inject=0):
     ("agm6_dcp", {0, 1, 2}),  # the default: 60 s tail hold, float is out of reach in 250 s
     ("flooded6_mppt_taps", {0, 1, 2, 3, 4})])  # MPPT, cell taps, every stage
 def test_steady_state_tick_allocates_nothing(micropython, tmp_path, variant, stages):
-    """GUIDE §5: with gc.disable(), gc.mem_alloc() over N = 5000 ticks minus the same loop with
+    """DEVELOPERS.md: with gc.disable(), gc.mem_alloc() over N = 5000 ticks minus the same loop with
     0 ticks is 0 bytes. The 5000 ticks are a rich closed-loop sequence (stages, USB on and
     off, trips, lockout and reset, every sensor fault), after a warm-up of 500 ticks sampled
     across it."""

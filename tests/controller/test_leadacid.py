@@ -40,7 +40,7 @@ def flooded(**kw):
 
 # --- temperature compensation: worked examples, exact in integer mV ---------------------------
 def test_bu403_float_2v30_minus_3mv_per_c():
-    # check-values.md worked example (Battery University BU-403): float 2.30 V/cell at 25 C
+    # Battery University BU-403's worked example: float 2.30 V/cell at 25 C
     # with -3 mV/C/cell gives 2.27 V/cell at 35 C and 2.33 V/cell at 15 C
     p = prof(battery__cells=1, battery__absorption_v_per_cell=2.40,
              battery__float_v_per_cell=2.30, battery__temp_coeff_mv_per_c_per_cell=-3.0,
@@ -56,9 +56,11 @@ def test_bu403_float_2v30_minus_3mv_per_c():
 
 
 def test_flooded_float_13v4_at_30c():
-    # check-values.md worked example: flooded float 13.4 V at 25 C, battery at 30 C,
-    # -5 mV/C/cell: 13.4 - 6 x 0.005 x 5 = 13.25 V. 13.4 V is not a whole number of mV per
-    # cell, so the check is on the compensation itself: exactly -150 mV on a 6-cell block.
+    # Worked example (derived): a flooded float of 13.4 V at 25 C (inside the makers' 2.20-2.25
+    # V/cell, battery makers' charging manuals), battery at 30 C, the makers' flooded
+    # -5 mV/C/cell (same manuals): 13.4 - 6 x 0.005 x 5 = 13.25 V. 13.4 V is not a whole
+    # number of mV per cell, so the check is on the compensation itself: exactly -150 mV on a
+    # 6-cell block.
     p = prof(battery__chemistry="flooded", battery__absorption_v_per_cell=2.45,
              battery__float_v_per_cell=2.23, battery__temp_coeff_mv_per_c_per_cell=-5.0)
     delta_mv = comp_mv(p, p.float_cell_mv, 300) - comp_mv(p, p.float_cell_mv, 250)
@@ -68,8 +70,8 @@ def test_flooded_float_13v4_at_30c():
 
 
 def test_gel_absorption_14v40_at_35c():
-    # check-values.md worked example: gel absorption 14.40 V at 25 C, battery at 35 C,
-    # -5 mV/C/cell: 14.10 V
+    # Worked example (derived): gel absorption 14.40 V at 25 C (2.40 V/cell, the makers' gel
+    # range), battery at 35 C, -5 mV/C/cell (makers' charging manuals): 14.10 V
     p = prof(battery__chemistry="gel", battery__absorption_v_per_cell=2.40,
              battery__float_v_per_cell=2.25, battery__temp_coeff_mv_per_c_per_cell=-5.0)
     assert comp_mv(p, p.abs_cell_mv, 250) == 14400
@@ -292,7 +294,7 @@ def test_sealed_batteries_never_equalize(chem):
     (-1, F_TEMP_WINDOW), (451, F_TEMP_WINDOW), (600, F_TEMP_WINDOW),
     (-401, F_TEMP_SENSOR), (851, F_TEMP_SENSOR), (-32768, F_TEMP_SENSOR)])
 def test_no_charging_outside_the_window_or_without_a_plausible_temperature(temp_dc, fault):
-    # window 0-45 C by default (check-values.md, BU-410: never charge a frozen battery, avoid
+    # window 0-45 C by default (Battery University BU-410: never charge a frozen battery, avoid
     # above about 49-50 C); an open or shorted sensor blocks charging too (leadacid.py)
     b = Bench(prof(), bus_mv=18000, batt_ma=1000)
     c = b.run(20, batt_mv=13000)
@@ -372,8 +374,8 @@ def test_current_limit_pulls_the_duty_down():
 
 # --- low-voltage disconnect --------------------------------------------------------------------
 def test_low_voltage_disconnect_with_hysteresis():
-    # defaults: disconnect at 1.75 V/cell (10.50 V, makers' discharge tables via
-    # check-values.md), reconnect at 2.10 V/cell (12.60 V)
+    # defaults: disconnect at 1.75 V/cell (10.50 V, makers' discharge tables, end of discharge
+    # at C/10), reconnect at 2.10 V/cell (12.60 V)
     b = Bench(prof(), bus_mv=0)
     assert b.run(1, batt_mv=12000).batt_out == 1
     assert b.run(1, batt_mv=10500).batt_out == 1

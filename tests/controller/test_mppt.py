@@ -57,7 +57,7 @@ def test_overspeed_dump_ramp():
     assert h.dump_duty(23999) == 0  # no overspeed level: the guard alone
 
 
-SMALL_INT = 2 ** 30  # GUIDE section 2: every intermediate stays a small int on a 32-bit port
+SMALL_INT = 2 ** 30  # DEVELOPERS.md: every intermediate stays a small int on a 32-bit port
 
 
 def test_power_sum_stays_a_small_int_at_the_largest_legal_scales():

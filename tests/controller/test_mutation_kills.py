@@ -183,9 +183,9 @@ def test_after_a_fault_the_converters_restart_from_the_output():
 def test_the_commands_carry_the_probe_and_the_match():
     """Invariant: the probe the port asks for and the scheme the lines match reach the
     Commands. A dedicated charging port (BC1.2 1.4.7, D+ shorted to D-) is checked with the
-    board's D+ probe on (V_DP_SRC 0.5-0.7 V, BC1.2 1.4.2; D- follows above V_DAT_REF's top,
-    0.4 V, BC1.2 1.4.4; check-values.md), so the probe command must be on before the port
-    closes; a 2.7 V / 2.7 V divider port (check-values.md) reports its match code."""
+    board's D+ probe on (V_DP_SRC 0.5-0.7 V; D- follows above V_DAT_REF's top, 0.4 V: BC1.2
+    ch. 5, DC electrical characteristics), so the probe command must be on before the port
+    closes; a 2.7 V / 2.7 V divider port (common practice) reports its match code."""
     b = Bench(build(doc_with(usb__scheme="dcp", usb__debounce_ms=100)), usb_vbus_mv=5000,
               usb_dp_mv=600, usb_dm_mv=600)
     c = b.run(1)
@@ -426,7 +426,7 @@ from controller.signals import (  # noqa: E402
 )
 from controller.usbport import MATCH_NAMES, M_NONE, M_SHORT_1V2, UsbPort, classify  # noqa: E402
 
-SMALL_INT = 2 ** 30  # GUIDE §2: every value in the tick stays within +/-2**30
+SMALL_INT = 2 ** 30  # DEVELOPERS.md: every value in the tick stays within +/-2**30
 
 
 # --- supervisor ----------------------------------------------------------------------------------
@@ -474,7 +474,7 @@ def test_the_safe_state_reports_no_line_match():
 
 
 def test_the_tick_counter_never_leaves_the_small_int_range():
-    """Invariant (supervisor.py ticks, GUIDE §2): the tick counter stays under 2**30 at every
+    """Invariant (supervisor.py ticks, DEVELOPERS.md): the tick counter stays under 2**30 at every
     tick, the tick of the wrap included (not only after it)."""
     b = running()
     b.sup.ticks = TICKS_MASK - 3  # white box: 2**30 ticks is too many to run
@@ -496,8 +496,8 @@ def test_the_first_tick_counts_no_time_at_one_ms_resolution():
 
 # --- USB classifier: scheme codes and window edges ----------------------------------------------
 def _scheme_lines(name, vbus_mv=5000):
-    """A port's data lines as check-values.md gives them (divider arithmetic, E96 values, or
-    the DCP probe level, BC1.2 §1.4.2), at vbus_mv."""
+    """A port's data lines (divider arithmetic, derived from E96 values, or the DCP probe
+    level, V_DP_SRC in BC1.2 ch. 5), at vbus_mv."""
     div = {"div_2v0_2v7": (LEVEL_20_DIV, LEVEL_27_DIV), "div_2v7_2v0": (LEVEL_27_DIV, LEVEL_20_DIV),
            "div_2v7_2v7": (LEVEL_27_DIV, LEVEL_27_DIV), "short_1v2": (LEVEL_12_DIV, LEVEL_12_DIV)}
     if name == "dcp":
@@ -506,7 +506,7 @@ def _scheme_lines(name, vbus_mv=5000):
     return round(vbus_mv * b1 / (t1 + b1)), round(vbus_mv * b2 / (t2 + b2))
 
 
-LEVEL_20_DIV = (75, 49.9)  # check-values.md divider arithmetic: 1.998 V at 5.00 V
+LEVEL_20_DIV = (75, 49.9)  # divider arithmetic (derived): 1.998 V at 5.00 V
 LEVEL_27_DIV = (43, 49.9)  # 2.686 V
 LEVEL_12_DIV = (100, 31.6)  # 1.201 V
 
@@ -537,8 +537,8 @@ _WINDOWS = [("div_2v0_2v7", 0, 2000), ("div_2v0_2v7", 1, 2700),
 def test_every_level_window_is_closed_at_both_ends(scheme, line, level_mv, tol_pct):
     """Invariant (usbport.classify docstring; docs/profile.md line_tolerance_pct): a level L
     matches within L x tol_pct / 100 around L at VBUS 5.00 V, ends included, on either line of
-    every scheme; one mV outside either end it does not. Levels 2.0, 2.7, 1.2 V: check-values.md
-    data-line schemes (common practice)."""
+    every scheme; one mV outside either end it does not. Levels 2.0, 2.7, 1.2 V: data-line
+    schemes of common practice."""
     want = SCHEME_NAMES.index(scheme) + 1
     nominal = {"div_2v0_2v7": (2000, 2700), "div_2v7_2v0": (2700, 2000),
                "div_2v7_2v7": (2700, 2700), "short_1v2": (1200, 1200)}[scheme]
@@ -556,7 +556,7 @@ def test_lines_count_as_shorted_up_to_the_tolerance_either_way(short_mv):
     """Invariant (docs/profile.md short_tolerance_mv: the largest D+/D- difference that still
     counts as shorted): a difference of exactly +-short_tolerance is shorted whichever line is
     higher, one mV more is not. Checked on the DCP probe (BC1.2 §1.4.7: D+ shorted to D-;
-    V_DP_SRC 0.5-0.7 V §1.4.2; D- above V_DAT_REF's 0.4 V top §1.4.4)."""
+    V_DP_SRC 0.5-0.7 V, D- above V_DAT_REF's 0.4 V top: BC1.2 ch. 5 DC table)."""
     dp = 650 if short_mv < 200 else 700
     for d, shorted in ((short_mv, True), (-short_mv, True), (short_mv + 1, False),
                        (-short_mv - 1, False)):
@@ -624,7 +624,7 @@ def test_after_a_fault_the_port_restarts_as_after_a_stop():
 
 
 def test_the_converter_run_time_stays_a_small_int():
-    """Invariant (usbport.py conv_ms: capped at the debounce time; GUIDE §2 small ints): the
+    """Invariant (usbport.py conv_ms: capped at the debounce time; DEVELOPERS.md: small ints): the
     converter's run time stops counting at the debounce time, so after 2**30 ms of running
     (12.4 days) it is still a small int."""
     p = build(doc_with(usb__scheme="div_2v7_2v7", control__period_ms=1000))
@@ -991,7 +991,7 @@ def test_half_again_over_the_limit_the_converter_is_off(over_pct, off):
 # --- signals and the USB logic bound -----------------------------------------------------------
 def test_d_plus_at_the_bottom_of_v_lgc_is_no_dcp():
     """Invariant (usbport.py, docs/profile.md dcp check): while the port is on the lines must
-    stay below V_LGC's bottom, 0.8 V (BC1.2 §1.4.4: V_LGC 0.8-2.0 V, check-values.md), on
+    stay below V_LGC's bottom, 0.8 V (V_LGC 0.8-2.0 V, BC1.2 ch. 5 DC table), on
     either line: D+ at 0.8 V with D- under it is no DCP."""
     assert classify(800, 799, 5000, 0, 8, 100) == M_NONE
     assert classify(799, 800, 5000, 0, 8, 100) == M_NONE

@@ -32,7 +32,7 @@ class Clamp:
 
 
 def test_clamp_derated_below_the_bank_rating():
-    # defaults: six 2.7 V cells (makers' application notes via check-values.md: 2.7 V typical),
+    # defaults: six 2.7 V cells (supercap makers' application notes: 2.7 V typical),
     # 10 % derate: 14.58 V
     c = Clamp()
     assert c.p.cap_clamp_mv == 14580 <= 6 * 2700
@@ -101,7 +101,7 @@ def test_balancing_bleeds_the_cells_above_the_mean():
 
 def test_a_cell_at_its_rating_stops_charging():
     # a series bank can hold one cell over its rating while the bank is under its clamp
-    # (makers' balancing notes via check-values.md)
+    # (supercap makers' balancing application notes)
     c = Clamp(supercap__cell_taps=True)
     c.taps(2699, 2300, 2300, 2300, 2300, 2300)
     assert c.step(cap_mv=14199) > 0 and c.k.fault == 0

@@ -19,7 +19,7 @@ from controller.signals import (
 )
 from controller.usbport import UsbPort
 
-SMALL_INT = 2 ** 30  # GUIDE §2: every value in the tick stays within +/-2**30
+SMALL_INT = 2 ** 30  # DEVELOPERS.md: every value in the tick stays within +/-2**30
 
 
 def running(**kw):

@@ -25,9 +25,10 @@ def cls(dp_mv, dm_mv, vbus_mv=5000, probe=0, tol_pct=TOL_PCT, short_mv=SHORT_MV)
 
 
 # --- BC1.2 dedicated charging port --------------------------------------------------------------
-# BC1.2 §1.4.7: a DCP has D+ shorted to D- (R_DCP_DAT 0-200 ohm). While probing, the board
-# sources V_DP_SRC on D+ (BC1.2 §1.4.2: 0.5-0.7 V) and D- must follow above V_DAT_REF
-# (BC1.2 §1.4.4: 0.25-0.4 V, so above 0.4 V whatever the comparator's threshold).
+# BC1.2 §1.4.7 (the definition): a DCP has D+ shorted to D- (R_DCP_DAT 0-200 ohm, BC1.2 ch. 5
+# resistances table). While probing, the board sources V_DP_SRC on D+ (0.5-0.7 V) and D- must
+# follow above V_DAT_REF (0.25-0.4 V, so above 0.4 V whatever the comparator's threshold);
+# both in BC1.2 ch. 5, "Parameter Values", DC electrical characteristics table.
 @pytest.mark.parametrize("dp_mv", [500, 550, 600, 650, 700])
 def test_probe_inside_v_dp_src_with_d_minus_following_is_dcp(dp_mv):
     assert cls(dp_mv, dp_mv, probe=1) == M_DCP
@@ -60,7 +61,7 @@ def test_probe_on_rejects_every_other_scheme():
 
 def test_port_on_dcp_lines_stay_shorted_below_v_lgc():
     # probe off (port on): the lines must stay equal and below V_LGC's bottom, 0.8 V
-    # (BC1.2 §1.4.4: V_LGC 0.8-2.0 V)
+    # (V_LGC 0.8-2.0 V, BC1.2 ch. 5 DC electrical characteristics)
     assert cls(0, 0) == M_DCP
     assert cls(790, 760) == M_DCP
     assert cls(799, 799) == M_DCP
@@ -75,7 +76,7 @@ def divider_mv(top_kohm, bottom_kohm, vbus_mv):
 
 
 def test_divider_arithmetic_from_check_values():
-    # check-values.md "Divider arithmetic (derived, E96 values)" from 5.00 V
+    # divider arithmetic (derived, E96 values) from 5.00 V
     assert round(divider_mv(75, 49.9, 5000)) == 1998
     assert round(divider_mv(43, 49.9, 5000)) == 2686
     assert round(divider_mv(100, 31.6, 5000)) == 1201
@@ -84,7 +85,7 @@ def test_divider_arithmetic_from_check_values():
 LEVEL_20 = (75, 49.9)  # 1.998 V at 5.00 V
 LEVEL_27 = (43, 49.9)  # 2.686 V
 LEVEL_12 = (100, 31.6)  # 1.201 V
-SCHEMES = [  # check-values.md data-line schemes (common practice), named by their levels
+SCHEMES = [  # data-line schemes of common practice (no standard), named by their levels
     (M_DIV_2V0_2V7, LEVEL_20, LEVEL_27),
     (M_DIV_2V7_2V0, LEVEL_27, LEVEL_20),
     (M_DIV_2V7_2V7, LEVEL_27, LEVEL_27),
@@ -97,7 +98,7 @@ SCHEMES = [  # check-values.md data-line schemes (common practice), named by the
 @pytest.mark.parametrize("tol_pct", [1, 3, 8, 14])
 def test_divider_levels_accepted_for_their_scheme_at_any_vbus(want, dp_div, dm_div, vbus_mv,
                                                               tol_pct):
-    # check-values.md: a divider tracks VBUS; at the +/-5 % VBUS limits the line moves +/-5 %
+    # derived: a divider tracks VBUS; at the +/-5 % VBUS limits the line moves +/-5 %
     # (before resistor tolerance); the classifier's windows scale with the measured VBUS
     dp_mv = round(divider_mv(*dp_div, vbus_mv))
     dm_mv = round(divider_mv(*dm_div, vbus_mv))
@@ -137,9 +138,9 @@ def test_window_edges_at_5v():
 
 def test_level_windows_never_overlap_within_the_allowed_tolerances():
     # profile cap line_tolerance_pct <= 14 "wider windows would confuse the 2.0 V and 2.7 V
-    # levels": for every allowed tolerance and VBUS across the BC1.2 V_CHG window (§1.4.11,
+    # levels": for every allowed tolerance and VBUS across the BC1.2 V_CHG window (ch. 5,
     # 4.75-5.25 V), the top of the 2.0 V window stays under the bottom of the 2.7 V window,
-    # and the 1.2 V window stays above the DCP's 0.8 V logic bound (V_LGC, §1.4.4)
+    # and the 1.2 V window stays above the DCP's 0.8 V logic bound (V_LGC, ch. 5)
     for tol_pct in range(1, 15):
         assert tol_pct < 100 * 700 / 4700  # 2.0 (1 + t) < 2.7 (1 - t)
         for vbus_mv in range(4750, 5251, 25):
@@ -254,7 +255,7 @@ def test_debounce_restarts_on_a_glitch():
 
 def test_vbus_window_edges_are_inside():
     """Invariant (docs/profile.md sensors.vbus_gain_tol_pct): the port switches on only with
-    the reading inside BC1.2 1.4.11 V_CHG 4.75-5.25 V shrunk by the VBUS sensor's tolerance
+    the reading inside BC1.2 V_CHG (ch. 5) 4.75-5.25 V shrunk by the VBUS sensor's tolerance
     (0.5 % x edge, rounded up, + 4 mV: 4.778-5.219 V); the shrunk window's edges are inside,
     a reading 1 mV beyond them is not. Regression: a sensor 0.33 % high kept a port on for 41 s
     at a true 4.745 V (it read 4.761 V)."""

@@ -37,7 +37,7 @@ def test_module_imports_in_64k_heap(micropython, module):
 @pytest.mark.micropython
 @pytest.mark.parametrize("mode", ["lockstep", "realtime"])
 def test_firmware_loop_allocates_nothing_on_micropython(micropython, mode):
-    # GUIDE section 5: gc.disable(), gc.mem_alloc() before and after; goal 0 bytes. The
+    # DEVELOPERS.md: gc.disable(), gc.mem_alloc() before and after; goal 0 bytes. The
     # measured stretch decodes 250 MEAS frames, ticks 250 times and sends CMD and telemetry.
     out = run([micropython, "-X", "heapsize=256k", "tests/link/mp_alloc.py", mode]).split()
     got = dict(zip(out[::2], (int(v) for v in out[1::2])))

@@ -65,7 +65,7 @@ def test_hut_wind_uses_its_profile():
      "9", "0.05 to 5 A"),
     ({"seed": 1.5, "drive": {"kind": "pedal"}}, "seed", "1.5", "a whole number"),
     ({"drive": {"kind": "pedal"}, "usb": {"network": {"dcp_short_ohm": 500}}},
-     "usb.network.dcp_short_ohm", "500", "BC1.2 1.4.7"),
+     "usb.network.dcp_short_ohm", "500", "BC1.2 ch. 5 resistances table"),
 ])
 def test_bad_field_named_with_file_value_and_range(tmp_path, doc, path, value, allowed):
     f = _write(tmp_path, doc)

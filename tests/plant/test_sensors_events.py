@@ -64,6 +64,7 @@ def test_over_range_clips_at_full_scale():
 
 
 def test_noise_is_seeded():
+    # the same seed repeats every reading of a running plant exactly
     a, b = _plant(quiet=False), _plant(quiet=False)
     ma, mb = Measurements(), Measurements()
     for _ in range(20):
@@ -72,6 +73,26 @@ def test_noise_is_seeded():
         a.measure(ma)
         b.measure(mb)
         assert (ma.bus_mv, ma.batt_ma, ma.batt_temp_dc) == (mb.bus_mv, mb.batt_ma, mb.batt_temp_dc)
+
+
+def _fixed_input_reads(seed, n=200):
+    """n readings of one fixed true value (12 V on the bus channel, 25 C on the NTC), noise on
+    (0.7 LSB rms, the default) and no gain error: whatever differs between seeds is noise."""
+    sensors = {"bus_v": {"gain_tol_pct": 0}, "batt_temp": {"noise_c": 0.2}}
+    pl = _plant(quiet=False, seed=seed, sensors=sensors)
+    bus, temp = pl.sensors.ch["bus_v"], pl.sensors.temp
+    return [bus.read(12.0) for _ in range(n)], [temp.read(25.0) for _ in range(n)]
+
+
+def test_noise_same_seed_repeats_other_seed_differs():
+    (bus1, temp1), (bus1b, temp1b), (bus2, temp2) = (
+        _fixed_input_reads(1), _fixed_input_reads(1), _fixed_input_reads(2))
+    assert bus1 == bus1b and temp1 == temp1b  # same seed: the same noise, sample for sample
+    assert bus1 != bus2 and temp1 != temp2  # another seed: other noise
+    # it is noise: one fixed input reads as several codes, centred on the true value
+    assert len(set(bus1)) > 1 and len(set(temp1)) > 1
+    lsb_mv = 40000 / 4096  # 12 bits over 40 V
+    assert abs(sum(bus1) / len(bus1) - 12000) < lsb_mv
 
 
 def _run(pl, seconds, c=None, every=None):

@@ -1,6 +1,7 @@
 # USB side of the plant: data-line levels per scheme, the probe, assembly faults, and what a
-# device draws for each signalling. Levels: check-values.md, "USB charging" (BC1.2 clauses)
-# and the divider arithmetic rows; device currents: its "Data-line signalling" table.
+# device draws for each signalling. Levels: BC1.2 (USB Battery Charging Specification Rev.
+# 1.2), chapter 5 "Parameter Values", and the divider arithmetic (derived); device currents:
+# the data-line schemes of common practice (host_sim/plant/usb.py says why DCP is 1.5 A).
 import numpy as np
 import pytest
 
@@ -21,7 +22,7 @@ def _fault(f):
 
 
 @pytest.mark.parametrize("scheme,dp,dm", [
-    # check-values.md divider arithmetic (E96): 75k/49.9k -> 1.998 V, 43k/49.9k -> 2.686 V,
+    # divider arithmetic (derived, E96): 75k/49.9k -> 1.998 V, 43k/49.9k -> 2.686 V,
     # 100k/31.6k -> 1.201 V, all from 5.00 V
     ("div_2v0_2v7", 1.998, 2.686),
     ("div_2v7_2v0", 2.686, 1.998),
@@ -37,16 +38,17 @@ def test_divider_levels_at_5v(scheme, dp, dm):
 
 
 def test_dividers_track_vbus():
-    # check-values.md: "A divider tracks VBUS: VBUS at its +/-5 % limits moves the line voltage
-    # by +/-5 %"
+    # derived: a divider tracks VBUS, so VBUS at its +/-5 % limits moves the line voltage by
+    # +/-5 %
     n = _net("div_2v7_2v0")
     a = n.lines(5.0, 0)[0]
     assert n.lines(5.25, 0)[0] == pytest.approx(1.05 * a, rel=1e-9)
 
 
 def test_dcp_probe_reads_v_dp_src_on_both_lines():
-    # BC1.2 1.4.7: a DCP shorts D+ to D- through 0-200 ohm; with the probe sourcing V_DP_SRC
-    # (BC1.2 1.4.2: 0.5-0.7 V) D- follows D+ and sits above V_DAT_REF's top 0.4 V (1.4.4).
+    # BC1.2 1.4.7: a DCP shorts D+ to D- (R_DCP_DAT 0-200 ohm, ch. 5 resistances table); with
+    # the probe sourcing V_DP_SRC (0.5-0.7 V) D- follows D+ and sits above V_DAT_REF's top
+    # 0.4 V (both ch. 5, DC electrical characteristics).
     for r in (0.0, 200.0):
         n = _net("dcp", dcp_short_ohm=r)
         vp, vm = n.lines(5.0, 1)
@@ -57,7 +59,8 @@ def test_dcp_probe_reads_v_dp_src_on_both_lines():
 
 
 def test_dcp_short_drawn_within_bc12_range():
-    # BC1.2 1.4.7: R_DCP_DAT 0-200 ohm; drawn per seed when the scenario leaves it out
+    # BC1.2 ch. 5 resistances table: R_DCP_DAT 0-200 ohm; drawn per seed when the scenario
+    # leaves it out
     rs = [Network(dict(load_doc({"drive": {"kind": "pedal"}}).doc["usb"]["network"]),
                   np.random.default_rng(s)).r["between"] for s in range(50)]
     assert 0.0 <= min(rs) and max(rs) <= 200.0 and max(rs) - min(rs) > 50
@@ -78,8 +81,9 @@ def test_faults_change_the_lines():
 
 
 @pytest.mark.parametrize("scheme,amps", [
-    # check-values.md: DCP 1.5 A (BC1.2 via the brief), divider 2.0/2.7 -> 1 A, 2.7/2.0 ->
-    # 2.1 A, 2.7/2.7 -> 2.4 A, shorted 1.2 V -> about 2 A; anything else 0.5 A
+    # DCP 1.5 A: the common phone on a DCP (common practice; BC1.2 allows I_DCP 0.5-5 A, 1.5 A
+    # was BC1.1's limit); divider 2.0/2.7 -> 1 A, 2.7/2.0 -> 2.1 A, 2.7/2.7 -> 2.4 A, shorted
+    # 1.2 V -> about 2 A (common practice); anything else 0.5 A
     ("dcp", 1.5), ("div_2v0_2v7", 1.0), ("div_2v7_2v0", 2.1), ("div_2v7_2v7", 2.4),
     ("short_1v2", 2.0),
 ])
