@@ -34,6 +34,15 @@ _SOFT_RELEASE = const(500)
 # above recovery had the soft zone on through normal charging, taking 29 % of the rider's
 # input that the rider need not have given (a human drive eases off on an unloaded bus).
 _RISE_SHIFT = const(6)
+# And not while the supervisor sets _NO_AHEAD (from the last period): (a) a battery in bulk
+# under its limit with its converter running takes a rising bus itself. A wind machine's gusts
+# lifted its bus 18 -> 20 V with the battery at 2-8 A of 12 A; the look-ahead dumped, the bus
+# fell under the battery converter's duty and the battery lost its current: 8 % of the input
+# went to the dump (keeping the look-ahead inside the zone still left 4.9 %). The zone's top
+# eighth, the trip and the overspeed dump still hold such a bus. (b) The stores made the rise
+# (the bus was not above them and the source gives no current): at power-up the stores lift
+# the bus from 0 V, and the look-ahead read that as a run-up and drew 22 A from a battery
+# through a 0.4 ohm dump for a second on a still day.
 
 
 # state slots of OverVoltGuard.st (array('i'), all >= 0); the host names them (end of file)
@@ -49,6 +58,8 @@ _RAMP = const(7)  # ramp: latch dump: full while latched, then stepping down by 
 _SOFT = const(8)  # soft: soft-zone dump duty of the last period (0..DUTY_MAX)
 _DUMP = const(9)  # dump: dump duty the guard asks for: the larger of ramp and soft
 _BUS_LAST = const(10)  # bus_last_mv: the bus given last period, mV (0 for one below 0 V)
+_NO_AHEAD = const(11)  # no_ahead: 1 when this period's rise is not to be read ahead (set by
+# the supervisor: a store has room for it, or the stores made it)
 # profile slots of OverVoltGuard.cfg (array('i'))
 _C_TRIP_MV = const(0)
 _C_RECOVER_MV = const(1)
@@ -62,7 +73,7 @@ _C_STEADY_SPAN_MV = const(6)  # steady_span_mv: the zone's top eighth, mV (at le
 class OverVoltGuard:
     def __init__(self, p):
         self.p = p
-        self.st = array("i", [0] * 11)  # the state, slots above
+        self.st = array("i", [0] * 12)  # the state, slots above
         self.trip_at = array("i", [0] * p.lockout_trips)  # ring of recent trip times (now_ms)
         self.cfg = array("i", [p.ovp_trip_mv, p.ovp_recover_mv, p.ovp_hold_ms, p.trip_window_ms,
                                p.lockout_trips, max(1, p.ovp_trip_mv - p.ovp_recover_mv),
@@ -110,7 +121,7 @@ class OverVoltGuard:
         soft = 0
         last = s[_BUS_LAST]
         s[_BUS_LAST] = bus_mv if bus_mv > 0 else 0
-        if last and bus_mv - last > bus_mv >> _RISE_SHIFT:
+        if last and bus_mv - last > bus_mv >> _RISE_SHIFT and not s[_NO_AHEAD]:
             # running up: where the bus may be a period on, over the whole zone
             span = cfg[_C_SOFT_SPAN_MV]
             over = bus_mv + ((bus_mv - last) << 1) - cfg[_C_RECOVER_MV]
@@ -165,6 +176,6 @@ class OverVoltGuard:
 if not MICROPYTHON:
     state_names(OverVoltGuard, "st", tripped=_TRIPPED, locked=_LOCKED, below_ms=_BELOW_MS,
                 n_trips=_N_TRIPS, next=_NEXT, last_ms=_LAST_MS, trips_total=_TRIPS_TOTAL,
-                ramp=_RAMP, soft=_SOFT, dump=_DUMP, bus_last_mv=_BUS_LAST)
+                ramp=_RAMP, soft=_SOFT, dump=_DUMP, bus_last_mv=_BUS_LAST, no_ahead=_NO_AHEAD)
     state_names(OverVoltGuard, "cfg", soft_span_mv=_C_SOFT_SPAN_MV,
                 steady_span_mv=_C_STEADY_SPAN_MV)

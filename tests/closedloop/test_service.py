@@ -235,7 +235,10 @@ def demo_short(seconds):
 
 def test_dump_waste_fires_on_a_dump_that_works_against_the_stores():
     def dump_on(c, n):
-        c.dump_duty = max(c.dump_duty, 3000)  # 30 % of the dump on, whatever the bus
+        # 70 % of the dump on, whatever the bus (30 % took 3.2 % of the input from a battery
+        # with room, too near the 3 % threshold: a battery converter that holds its current on
+        # the loaded bus, as it now does, brought that to 2.4 %; 70 % takes 5.7 %)
+        c.dump_duty = max(c.dump_duty, 7000)
     res = run(demo_short(60), after=dump_on)
     assert "dump_waste" in codes(res.service)
     room = res.service["dump"]["while_store_had_room_share"]

@@ -70,6 +70,8 @@ class Limits:
         self.tmin_dc = fv(b["charge_temp_min_c"]) * 10
         self.tmax_dc = fv(b["charge_temp_max_c"]) * 10
         self.margin_mv = F(100 * self.cells, 6)  # 0.1 V per 12 V block
+        # the charge limit as the profile's integer mA (to_int rounding)
+        self.chg_lim_ma = math.floor(fv(b["charge_limit_a"]) * 1000 + F(1, 2))
         self.absent_mv = fv(b["absent_v_per_cell"]) * 1000 * self.cells
         self.clamp_mv = (s["cells"] * fv(s["cell_rating_v"]) * 1000
                          * (100 - fv(s["clamp_derate_pct"])) / 100)
@@ -299,9 +301,10 @@ def check_i5(ticks, L):
     lockout_trips trips within the window keep every output off until reset.
     Between recovery and the trip the dump load comes in in proportion at once (on a bus
     running up, more than 1/64 of itself in a period, none at recovery and full at the trip,
-    judged where twice the last period's rise would take it; on any other bus over the zone's
-    top eighth only) and lets go by at most 5 % of full per period; a storage converter that
-    steps off carrying current on a bus running up puts it fully on. While the
+    judged where twice the last period's rise would take it, only when the battery had no room
+    for the rise and the stores did not make it; on any other bus
+    over the zone's top eighth only) and lets go by at most 5 % of full per period; a storage
+    converter that steps off carrying current on a bus running up puts it fully on. While the
     controller's cross-check holds the bus reading false, the dump load is fully on (also on a
     tick whose reading is out of range: the latch carries over it). With MPPT and an
     overspeed level the dump load also follows the bus above it (full over 1 V) at once, and
@@ -315,6 +318,7 @@ def check_i5(ticks, L):
     soft_dump = 0  # the guard's soft zone (docs/profile.md, bus)
     prev_gb = 0  # the bus the guard judged last period, mV (0: none, or a stand-in)
     prev_bd = prev_cd = 0  # last tick's storage duties
+    prev_stage = ST_BLOCKED  # last tick's stage
     trip_mv = math.floor(L.trip_mv + F(1, 2))  # the profile's integer mV (to_int rounding)
     rec_mv = math.floor(L.recover_mv + F(1, 2))
     span_mv = max(1, trip_mv - rec_mv)
@@ -342,7 +346,15 @@ def check_i5(ticks, L):
         # (only a bus running up: more than 1/64 of itself; a steady one over the zone's top
         # eighth alone)
         running_up = bool(not standin and prev_gb and gb - prev_gb > gb >> 6)
-        if running_up:
+        # ... only when no store has room for the rise (last tick the
+        # battery in bulk, its converter on, its current under 7/8 of its limit) and the
+        # stores did not make it (the bus 0.3 V over both last period, or the source giving
+        # over 200 mA)
+        lim = L.chg_lim_ma
+        no_ahead = ((prev_bd and prev_stage == ST_BULK and m.batt_ma < lim - (lim >> 3))
+                    or (m.src_ma <= 200 and (prev_gb - 300 <= m.batt_mv
+                                             or prev_gb - 300 <= m.cap_mv)))
+        if running_up and not no_ahead:
             zone_mv = span_mv
             over = gb + 2 * (gb - prev_gb) - rec_mv
         else:
@@ -357,7 +369,7 @@ def check_i5(ticks, L):
                 and ((prev_bd and not c.batt_duty and m.batt_ma > 200)
                      or (prev_cd and not c.cap_duty and m.cap_ma > 200))):
             soft_dump = DUTY_MAX
-        prev_bd, prev_cd = c.batt_duty, c.cap_duty
+        prev_bd, prev_cd, prev_stage = c.batt_duty, c.cap_duty, c.stage
         if L.overspeed_mv is not None and not c.fault & (F_BUS_SENSOR | F_OVP | F_OVP_LOCKOUT):
             over = m.bus_mv - L.overspeed_mv
             prop = 0 if over <= 0 else min(DUTY_MAX, over * DUTY_MAX // OVERSPEED_RAMP_MV)

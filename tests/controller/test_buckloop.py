@@ -230,16 +230,36 @@ def test_regression_crank_cap_at_its_aim_tapers_off():
 
 
 def test_on_a_rising_bus_the_duty_is_set_for_twice_the_last_rise_ahead():
-    """Invariant (buckloop.py, feedforward): on a bus that rose since the last period the duty
-    is u over the bus plus twice that rise, so the output does not pass u unless the bus rises
-    faster than it did; on a steady bus it is u over the bus."""
+    """Invariant (buckloop.py, feedforward): on a bus that rose since the last period, a store at
+    its current aim gets u over the bus plus twice that rise, so the output does not pass u
+    unless the bus rises faster than it did; on a steady bus it is u over the bus."""
     loop = BuckLoop()
     loop.u_mv, loop.duty, loop.bus_last_mv = 15000, 5000, 30000  # settled: 5000 x 30 V = 15 V
-    d = loop.update(14000, 14400, 500, 1000, 30000, 9000, BIG_MV)  # steady bus
+    d = loop.update(14000, 14400, 969, 1000, 30000, 9000, BIG_MV)  # steady bus, at its aim
     assert d == loop.u_mv * DUTY_MAX // 30000
-    d = loop.update(14000, 14400, 500, 1000, 31000, 9000, BIG_MV)  # rose 1 V
+    d = loop.update(14000, 14400, 969, 1000, 31000, 9000, BIG_MV)  # rose 1 V
     assert d == loop.u_mv * DUTY_MAX // 33000
     assert out_mv(d, 33000) <= loop.u_mv  # even if it rises 2 V more
+
+
+def test_on_a_rising_bus_a_store_with_room_takes_the_rise_up_to_its_room():
+    """Invariant (buckloop.py, feedforward): a store under its current aim (lim - lim/32) on a
+    rising bus gets a duty whose output at twice the rise ahead is u plus its room over
+    0.125 ohm ((aim - current) / 8 mV), never more than u over this bus: the current rises
+    towards the limit instead of falling as the bus rises (a wind machine's bus ran
+    15.9 -> 20.2 V in seven periods with its battery falling from 11.5 to 8.4 A of 12 A)."""
+    loop = BuckLoop()
+    loop.u_mv, loop.duty, loop.bus_last_mv = 15000, 5000, 30000
+    loop.update(14000, 14400, 500, 1000, 30000, 9000, BIG_MV)  # steady
+    d = loop.update(14000, 14400, 500, 1000, 31000, 9000, BIG_MV)  # rose 1 V, room 58 mV
+    room = (1000 - (1000 >> 5) - 500) >> 3
+    assert d == min((loop.u_mv + room) * DUTY_MAX // 33000, loop.u_mv * DUTY_MAX // 31000)
+    assert d > loop.u_mv * DUTY_MAX // 33000
+    assert out_mv(d, 33000) <= loop.u_mv + room
+    # a large room is capped at u over this bus
+    loop.u_mv, loop.duty, loop.bus_last_mv = 15000, 5000, 30000
+    d = loop.update(14000, 14400, 0, 30000, 30300, 9000, BIG_MV)
+    assert d <= loop.u_mv * DUTY_MAX // 30300
 
 
 def test_regression_crank_bus_runs_up_after_a_cut():

@@ -83,6 +83,7 @@ def _repeated_consts():
     for mod in (leadacid, supercap):  # the buck loop's slots, written out where it is stopped
         out += [(mod.__name__, "_L_U", buckloop._U), (mod.__name__, "_L_DUTY", buckloop._DUTY),
                 (mod.__name__, "_L_BUS_LAST", buckloop._BUS_LAST)]
+    out.append(("controller.supervisor", "_L_DUTY", buckloop._DUTY))  # the battery's loop
     parts = {"_OVP_": overvolt, "_USB_": usbport, "_CH_": leadacid, "_CAP_": supercap,
              "_MPPT_": mppt}
     for name in dir(supervisor):
