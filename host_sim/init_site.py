@@ -85,6 +85,11 @@ RIGS = {
 GEARED_EFFICIENCY = 0.95  # a direct-drive rig given a gear (the schema's default)
 CLAMP_KNEE_V = 26.0  # the schema's bus.clamp_knee_v and clamp_margin_v for a 12 V system
 CLAMP_MARGIN_V = 4.0
+# where the working EMF sits from the battery's need (0) to the soft zone's bottom (1): ours,
+# chosen by running every drive x chemistry x cell count (tests/test_init_size.py); the
+# reference rigs sit at 0.55-0.9, where the loaded bus reached the soft zone on 24 V and
+# small-battery sites and the dump took what a store could have
+EMF_PLACE = 0.2
 
 
 def _num(flag, lo, hi, unit, why="", integer=False):
@@ -276,20 +281,9 @@ def build_scenario(a, name, profile_ref, k):
     if gear["ratio"] != RIGS[a["drive"]]["gear"]["ratio"] and gear["efficiency"] == 1.0:
         gear["efficiency"] = GEARED_EFFICIENCY
     bus = dict(rig["bus"], clamp_knee_v=CLAMP_KNEE_V * k, clamp_margin_v=CLAMP_MARGIN_V * k)
-    what = {"pedal": "a pedal charging point", "crank": "a hand-crank kit",
-            "wind": "a micro-wind mast", "hydro": "a micro-hydro run"}[a["drive"]]
-    desc = ("Starter site written by spinrail init: %s, a %d-cell %s %g Ah battery, a %d-cell "
-            "%g F supercap bank, one phone on the USB port (scheme %s). The controller's "
-            "profile is %s. " % (what, a["cells"], a["battery"], a["capacity_ah"],
-                                 a["cap_cells"], a["cap_f"], a["usb"], profile_ref))
-    if later:
-        desc += ("MACHINE NOT MEASURED: K_e %g V/krpm and R_a %g ohm are placeholders for this "
-                 "drive; measure yours with `spinrail identify machine LOG.csv --write %s`. "
-                 % (mach["ke_v_per_krpm"], mach["ra_ohm"], name + ".json"))
-    desc += "Every field: docs/scenario.md; what to buy: spinrail size."
     return {
         "name": name,
-        "description": desc,
+        "description": "",
         "duration_s": a["duration_s"],
         "seed": 1,
         "profile": profile_ref,
@@ -302,6 +296,22 @@ def build_scenario(a, name, profile_ref, k):
         "usb": {"devices": [{"name": "phone", "arrive_s": 10, "battery_wh": 12, "soc0": 0.3,
                              "max_a": 2.0}]},
     }
+
+
+def describe(a, doc, profile_ref):
+    """The scenario's description: what the site is, and whether the machine is measured."""
+    mach = doc["machine"]
+    what = {"pedal": "a pedal charging point", "crank": "a hand-crank kit",
+            "wind": "a micro-wind mast", "hydro": "a micro-hydro run"}[a["drive"]]
+    desc = ("Starter site written by spinrail init: %s, a %d-cell %s %g Ah battery, a %d-cell "
+            "%g F supercap bank, one phone on the USB port (scheme %s). The controller's "
+            "profile is %s. " % (what, a["cells"], a["battery"], a["capacity_ah"],
+                                 a["cap_cells"], a["cap_f"], a["usb"], profile_ref))
+    if a["ke"] is None:
+        desc += ("MACHINE NOT MEASURED: K_e %g V/krpm and R_a %g ohm are placeholders for this "
+                 "drive; measure yours with `spinrail identify machine LOG.csv --write %s`. "
+                 % (mach["ke_v_per_krpm"], mach["ra_ohm"], doc["name"] + ".json"))
+    return desc + "Every field: docs/scenario.md; what to buy: spinrail size."
 
 
 def _load(doc, path, prof_doc):
@@ -327,6 +337,18 @@ def fit(doc, path, prof_doc, a):
     notes = []
     sc = _load(doc, path, prof_doc)
     h = charge_headroom(sc.doc)
+    kind = doc["drive"]["kind"]
+    if a["gear"] is None and h is not None:
+        # place the working EMF between what the battery needs and the soft zone's bottom, so
+        # the loaded bus neither starves the battery nor sits in the dump's soft zone
+        recover_v = prof_doc["bus"]["ovp_recover_v"]
+        scale = (h["need_v"] + EMF_PLACE * (recover_v - h["need_v"])) / h["emf_working_v"]
+        if a["ke"] is None and kind not in envelope.HUMAN_DRIVES:  # direct drive: the machine
+            doc["machine"]["ke_v_per_krpm"] = round(doc["machine"]["ke_v_per_krpm"] * scale, 2)
+        else:
+            doc["gear"]["ratio"] = round(doc["gear"]["ratio"] * scale, 2)
+        sc = _load(doc, path, prof_doc)
+        h = charge_headroom(sc.doc)
     if h is not None and not h["charges_at_working"]:
         ratio = doc["gear"]["ratio"] * h["need_v"] * 1.15 / max(h["emf_working_v"], 1e-9)
         raise UserError("--ke-v-per-krpm %g with --gear-ratio %g: %s. A gear of about %.2f "
@@ -385,6 +407,7 @@ def init_site(args):
                         "checks: %s" % e)
     doc = build_scenario(a, stem, prof_path.name, k)
     sc, notes = fit(doc, site, prof_doc, a)
+    doc["description"] = describe(a, doc, prof_path.name)
     for p in (site, prof_path):
         try:
             os.makedirs(p.parent if str(p.parent) else ".", exist_ok=True)

@@ -158,7 +158,10 @@ def size(sc):
     f, why = {}, {}
 
     def put(key, value, assumption, source, nd=3):
-        f[key] = None if value is None else (round(value, nd) if math.isfinite(value) else None)
+        if value is not None and not math.isfinite(value):  # JSON has no infinity
+            value = None
+            assumption += " (none: no bound, any amount is held)"
+        f[key] = None if value is None else round(value, nd)
         why[key] = {"assumption": assumption, "source": source}
 
     put("bus_trip_v", trip_v, "the profile's overvoltage trip", "profile", 2)

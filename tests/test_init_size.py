@@ -15,15 +15,9 @@ DRIVES = ("pedal", "crank", "wind", "hydro")
 CHEMS = ("flooded", "agm", "gel")
 CELLS = (3, 6, 12)
 # combinations whose starter site holds every limit but raises a service warning in 120 s:
-# the controller dumps while a store has room (dump_waste), and on 24 V human-drive sites the
-# battery buck's duty stays under the battery (no_charge). Controller behaviour, reported to
-# the lead; strict, so a fix shows here.
-KNOWN_SERVICE = {
-    ("pedal", "flooded", 3), ("pedal", "flooded", 12), ("pedal", "agm", 12), ("pedal", "gel", 3),
-    ("pedal", "gel", 6), ("pedal", "gel", 12), ("crank", "flooded", 6), ("crank", "flooded", 12),
-    ("crank", "agm", 6), ("crank", "agm", 12), ("crank", "gel", 12), ("wind", "gel", 3),
-    ("wind", "gel", 6), ("hydro", "flooded", 12), ("hydro", "gel", 12),
-}
+# the controller dumps while a store has room (dump_waste; 5 % and 29 % of the input). Controller
+# behaviour, reported to the lead; strict, so a fix shows here.
+KNOWN_SERVICE = {("wind", "gel", 6), ("hydro", "gel", 12)}
 
 
 def run(argv, capsys):
@@ -143,8 +137,14 @@ def test_measured_machine_gets_a_gear_that_charges(tmp_path, capsys):
                       "--ra-ohm", "0.4"], capsys)
     assert rc == 0, err
     sc = load_scenario(str(site))
-    assert sc.doc["gear"]["ratio"] == 32  # the demo rig's 18 V/krpm x 16, at 9 V/krpm
-    assert charge_headroom(sc.doc)["charges_at_working"]
+    assert sc.doc["machine"]["ke_v_per_krpm"] == 9 and sc.doc["machine"]["ra_ohm"] == 0.4
+    h = charge_headroom(sc.doc)
+    assert h["charges_at_working"]
+    # the gear puts the working EMF a fifth of the way from the battery's need to the soft
+    # zone's bottom (21 V on a 12 V system): 9 V/krpm x 70 rpm x ratio / 1000
+    target = h["need_v"] + 0.2 * (21.0 - h["need_v"])
+    assert abs(9 * 70 * sc.doc["gear"]["ratio"] / 1000.0 - target) < 0.01
+    assert "MACHINE NOT MEASURED" not in sc.doc["description"]
 
 
 def test_board_file_from_chip_and_pins_passes_the_shipped_checker(tmp_path, capsys):
@@ -216,9 +216,27 @@ def test_size_hydro_flow_against_the_turbine_curve(tmp_path, capsys):
     sc = load_scenario(str(site))
     p_w, rpm = envelope.dump_hold(24.0, sc.doc)
     x = rpm / 800.0  # runaway 800 rpm
+    if x >= 1.0:  # the bus limit lies past runaway: the turbine cannot push the bus there
+        assert f["flow_hold_lps"] is None and f["flow_max_lps"] is None
+        return
     q = p_w / (4 * 1000 * 9.81 * 5 * 0.6 / 1000 * x * (1 - x))  # 4 rho g H eta q x (1 - x)
     assert math.isclose(f["flow_hold_lps"], q, rel_tol=1e-3)
     assert f["flow_max_lps"] >= 5  # the site's own flow is held
+
+
+def test_size_flow_hold_by_hand_on_a_fixed_machine(tmp_path, capsys):
+    # a measured 45 V/krpm machine direct on the runner: the limit's speed lies inside runaway
+    from host_sim import envelope
+    from host_sim.scenario import load_scenario
+    site = tmp_path / "h.json"
+    assert run(["init", str(site), "--drive", "hydro", "--ke-v-per-krpm", "45", "--ra-ohm",
+                "0.5", "--gear-ratio", "1"], capsys)[0] == 0
+    f = json.loads(run(["size", str(site), "--json"], capsys)[1])["figures"]
+    p_w, rpm = envelope.dump_hold(24.0, load_scenario(str(site)).doc)
+    x = rpm / 800.0
+    assert 0 < x < 1
+    q = p_w / (4 * 9.81 * 5 * 0.6 * x * (1 - x))
+    assert math.isclose(f["flow_hold_lps"], q, rel_tol=1e-3)
 
 
 def test_size_human_table_and_bad_site(tmp_path, capsys):
