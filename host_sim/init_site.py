@@ -54,8 +54,7 @@ RIGS = {
                     "viscous_nm_per_krpm": 0.008, "coulomb_nm": 0.02},
         "gear": {"ratio": 18, "efficiency": 0.9},
         "bus": {"dump_ohm": 4.7},
-        # gel: the 12 V AGM block of crank_relief raises dump_waste (tests KNOWN_SERVICE)
-        "battery": ("gel", 12.0),
+        "battery": ("agm", 12.0),
         "control": {"mppt": False},
     },
     "wind": {  # host_sim/scenarios/hut_wind.json, at sea-level air

@@ -292,7 +292,7 @@ def print_table(f, why, out=None):
     w = max(len(k) for k in f)
     print("%-*s %10s %-4s  %s" % (w, "figure", "value", "unit", "assumption [source]"), file=out)
     for k, v in f.items():
-        val = "-" if v is None else ("%.4g" % v if isinstance(v, float) else str(v))
+        val = "no bound" if v is None else ("%.4g" % v if isinstance(v, float) else str(v))
         print("%-*s %10s %-4s  %s [%s]" % (w, k, val, _unit(k), why[k]["assumption"],
                                            why[k]["source"]), file=out)
 
