@@ -27,8 +27,10 @@ def build_parser():
                     "starting points, follow makers' data, local codes and licensed practice.")
     sub = ap.add_subparsers(dest="cmd", metavar="COMMAND", required=True)
     from host_sim import bench, cmd_board, fuzz, hil, limits, simulate, sweep, usbdesign, vectors
+    from host_sim import init_site, sizing
     from host_sim.identify import cli as identify_cli
-    for mod in (simulate, vectors, limits, identify_cli, usbdesign, fuzz, sweep, cmd_board, hil, bench):
+    for mod in (simulate, vectors, limits, identify_cli, usbdesign, fuzz, sweep, cmd_board, hil, bench,
+                init_site, sizing):
         mod.register(sub)
     return ap
 
