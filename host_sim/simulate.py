@@ -44,16 +44,21 @@ def _column_text(name, v):
     return txt
 
 
+_CSV_CHUNK_ROWS = 10000  # rows formatted at a time: the text of a long run never sits whole
+
+
 def write_timeseries(result, path):
     """timeseries.csv, one row per kept control period (columns: runner.COLUMNS)."""
     s = result.series
     cols = runner.COLUMN_NAMES
-    text = [_column_text(name, s[name]) for name in cols]
+    n = len(s["t_s"])
     with atomic_open(path) as f:
         f.write(",".join(cols) + "\n")
-        for row in zip(*text):
-            f.write(",".join(row))
-            f.write("\n")
+        for a in range(0, n, _CSV_CHUNK_ROWS):
+            text = [_column_text(name, s[name][a:a + _CSV_CHUNK_ROWS]) for name in cols]
+            for row in zip(*text):
+                f.write(",".join(row))
+                f.write("\n")
 
 
 def summary(result):

@@ -18,7 +18,6 @@ ROOT = Path(__file__).resolve().parents[2]
 
 def test_no_source_names_the_pinned_commit(monkeypatch, tmp_path):
     monkeypatch.delenv(emulate.ENV_SRC, raising=False)
-    monkeypatch.setattr(emulate, "_FALLBACK_SRC", tmp_path / "absent.tar.gz")
     with pytest.raises(UserError) as e:
         emulate.source()
     assert e.value.exit_code == 2 and emulate.PINNED_COMMIT in str(e.value)
