@@ -9,6 +9,7 @@ import pytest
 
 from controller.signals import F_OVP, ST_ABSORPTION, ST_BULK, ST_FLOAT
 from host_sim import runner
+from host_sim.limitcheck import LimitChecker
 from host_sim.scenario import load_scenario
 
 REGRESSIONS = Path(__file__).resolve().parents[1] / "plant" / "regressions"
@@ -126,4 +127,4 @@ def test_a_fast_torque_rise_from_rest_holds_the_bus_on_the_20ms_profile():
     a bus running up now hands the machine to the dump load."""
     sc, res = run("ctl_crank_torque_rise")  # (run() checks the bus limit with the others)
     assert sc.profile.period_ms == 20
-    assert float(np.max(res.series["bus_v"])) < runner.bus_limit_v(sc, sc.profile)
+    assert float(np.max(res.series["bus_v"])) < LimitChecker.for_scenario(sc).bus_limit_v
