@@ -17,7 +17,8 @@ import time
 
 from host_sim.errors import UserError
 
-EXIT_LOST = 3  # the run could not finish: a worker process died or the cluster went away
+EXIT_LOST = 4  # the run could not finish: a worker process died or the cluster went away (4, as
+# an internal error: 3 is simulate's "limits held but the system did not do its job")
 PRELOAD = ("numpy", "host_sim.fuzz", "host_sim.sweep", "host_sim.runner", "host_sim.plant.plant",
            "controller.supervisor")
 

@@ -4,7 +4,7 @@
 # them (the default) or on a Dask cluster (--scheduler). A failing example is shrunk in its
 # worker, written to --out as a scenario file, and the command that replays it is printed.
 # Exit status: 0 no limit crossed, 1 a limit crossed (or a run raised), 2 bad input,
-# 3 the campaign could not finish (distrib.EXIT_LOST). Service warnings (host_sim/service.py)
+# 4 the campaign could not finish (distrib.EXIT_LOST, as an internal error). Service warnings (host_sim/service.py)
 # are counted and reported apart: a randomly drawn site that does not do its job (a weak
 # rider, a cold battery) is not a limit crossing and does not fail the campaign.
 # Guide: docs/fuzz.md.
@@ -503,8 +503,9 @@ def register(sub):
                     "its replay command printed. Service warnings (a site that did not do its job: "
                     "no_charge, dump_waste ...) are counted and reported apart, with the worst "
                     "service figures; they are not limit crossings and do not change the exit "
-                    "status. Exit 0: no limit crossed; 1: a limit crossed; 2: bad input; 3: the "
-                    "campaign could not finish. Guide: docs/fuzz.md.")
+                    "status. Exit 0: no limit crossed; 1: a limit crossed; 2: bad input; 4: the "
+                    "campaign could not finish (a worker died, the cluster went away) or an "
+                    "internal error. Guide: docs/fuzz.md.")
     sp.add_argument("scenarios", nargs="*", metavar="SCENARIO",
                     help="base scenario file or built-in name (default: all built-ins)")
     g = sp.add_mutually_exclusive_group()

@@ -64,10 +64,26 @@ CHATTER_WINDOW_S = 60.0
 # or below the tail) met for this many hold times in one spell that did not end.
 ABS_OVER_S = 60.0
 TAIL_HOLDS = 3.0
-# The bulk acceptance is not defined where the source could give the battery, on average over
-# bulk, less than this share of its charge limit: the ratio of two near-zero currents says
-# nothing (ours).
+# The bulk acceptance counts only the bulk periods where the source could give the battery at
+# least this share of its charge limit (a period with nothing to accept judges nothing: a rider
+# at rest while the battery serves the port gave -148 from a near-zero sum), and is null unless
+# such periods add up to ACCEPT_MIN_S (a few MPPT settling times; ours).
 ACCEPT_FLOOR = 0.02
+ACCEPT_MIN_S = 10.0
+# harvest: null when the source offered less than TURNED_J (nothing to harvest: 390 J offered
+# against 656 J drawn from the stores gave -1.68) or when the stores and loads gained less than
+# nothing (the stores gave more than the source delivered: the figure would be theirs).
+# dump_from_storage: energy the dump took beyond what the source put on the bus in the same
+# period can only have come from the stores (through the OR-ing diodes) or the bus capacitor.
+# The source side is the machine's electrical output (before the bridge's loss, so an upper
+# bound: the drain found is a lower bound). Warning above 0.01 Wh: the bus capacitor holds
+# well under 1 J and one period of a dump fully on at a 12 V battery through a few ohms is a
+# few J; 36 J is tens of such periods (ours).
+STORAGE_DUMP_J = 36.0
+# charge_blocked: the controller held charging blocked this share of the time the battery was
+# connected (a cold or hot battery, a sensor fault, a battery absent): a protective refusal,
+# not a charging failure, named apart from no_charge.
+BLOCKED_SHARE = 0.5
 
 # fault bits that block the battery's charging (supervisor.py and leadacid.py); the others
 # (USB, supercap) can be set beside a block without being its reason
@@ -212,7 +228,8 @@ class ServiceMeter:
         self.offered_nan = False  # a period had no defined best power
         self.bulk_s = 0.0
         self.bulk_as = 0.0  # battery current in bulk, integrated, A s
-        self.bulk_poss_as = 0.0  # what it could have been, integrated, A s
+        self.bulk_poss_as = 0.0  # what it could have been, integrated, A s (periods counted)
+        self.accept_as = 0.0  # battery current taken in those periods (0 if it gave), A s
         self.ah_in_as = 0.0  # positive battery current, integrated, A s
         self.t_abs = None  # first tick reported in absorption, s
         self.t_float = None
@@ -224,6 +241,9 @@ class ServiceMeter:
         self.dump_j = 0.0
         self.dump_excused_j = 0.0  # in a trip, its release ramp or an overspeed
         self.dump_waste_j = 0.0  # taken while a store had room (bus side, up to the room)
+        self.dump_store_j = 0.0  # taken beyond the source's power: drained from the stores
+        self._surge_led = 0.0
+        self.accept_s = 0.0  # bulk time where the source could give the battery something
         self.t_trip = -math.inf  # end time of the last period with the latch set
         self.rpm_max = 0.0  # largest true machine speed, rpm
         self.t_rpm_max = 0.0
@@ -297,8 +317,11 @@ class ServiceMeter:
                     x = ((pb - usb_w) * self.eta_b - s["loads_w"]) / vb if vb > 0.1 else 0.0
                     if x > self.lim_a:
                         x = self.lim_a
-                    if x > 0.0:
+                    if x >= ACCEPT_FLOOR * self.lim_a:
+                        # a battery that gave charge here accepted none of it
                         self.bulk_poss_as += x * dt
+                        self.accept_as += (ib if ib > 0.0 else 0.0) * dt
+                        self.accept_s += dt
         elif stage == ST_ABSORPTION:
             if ib > CHARGING_A:
                 self.abs_charge_s += dt
@@ -308,7 +331,20 @@ class ServiceMeter:
             self.t_trip = t_s
         ed = s["dump_w"] * dt
         if ed > 0.0:
-            self._dump(t_s, s, ed, stage, conn, vb, ib, tb)
+            # the source's energy onto the bus this period: machine output and injected surges
+            sled = self.plant.led["surge_in_j"]
+            es = s["p_elec_w"] * dt + (sled - self._surge_led)
+            self._surge_led = sled
+            if es < 0.0:
+                es = 0.0
+            if ed > es:
+                self.dump_store_j += ed - es
+                ed_src = es
+            else:
+                ed_src = ed
+            self._dump(t_s, s, ed, ed_src, stage, conn, vb, ib, tb)
+        else:
+            self._surge_led = self.plant.led["surge_in_j"]
         if self.devices:
             for dv in self.devices:
                 if dv.soc < 1.0 and dv.plugged(t0):
@@ -355,19 +391,23 @@ class ServiceMeter:
             if self.t_abs is None:
                 self.t_abs = t0
 
-    def _dump(self, t_s, s, ed, stage, conn, vb, ib, tb):
+    def _dump(self, t_s, s, ed, ed_src, stage, conn, vb, ib, tb):
         """A period with the dump load on: excused (trip, its release ramp, overspeed) or
-        judged against the room the stores had."""
+        judged against the room the stores had. ed: the dump's energy, ed_src: the part the
+        source can have fed (the rest was drained from the stores, counted apart)."""
         self.dump_j += ed
         dt = self.dt
         if (t_s - self.t_trip <= TRIP_RELEASE_PERIODS * dt + 1e-9
                 or s["bus_v"] >= self.overspeed_v):
             self.dump_excused_j += ed
             return
+        ed = ed_src  # waste is the source's energy burnt; a drained store is dump_from_storage
         room = 0.0  # what the stores could have taken this period, bus side, J
         # the battery takes up to its limit in bulk only: in absorption and float its voltage
-        # sets the current, and the room left below the ceiling is a small taper
-        if conn and stage == ST_BULK and ib < ROOM_SHARE * self.lim_a:
+        # sets the current, and the room left below the ceiling is a small taper; a full
+        # battery (true state of charge FULL_SOC or more) has only that taper left in any stage
+        if (conn and stage == ST_BULK and ib < ROOM_SHARE * self.lim_a
+                and s["batt_soc"] < FULL_SOC):
             if vb < ceiling_v(self.lims, stage, tb) - self.band_v:
                 room += (self.lim_a - ib) * vb * dt / self.eta_b
         if self.cap_on:
@@ -402,11 +442,17 @@ class ServiceMeter:
             "battery_ah": {"net": _r(net_ah), "in": _r(self.ah_in_as / 3600.0)},
         }
         out["harvest"] = self._harvest(delivered_j)
-        out["dump_share"] = _r(led["loss_dump_j"] / in_j) if in_j > 0 else None
+        # the dump's share of the input counts what the source fed it; the input counts the
+        # rotor's kinetic energy given back too (a slowing rotor feeds the bus), so the share
+        # is at most 1
+        src_j = in_j + max(0.0, -led["rotor_stored_j"])
+        dump_src_j = max(0.0, led["loss_dump_j"] - self.dump_store_j)
+        out["dump_share"] = _r(dump_src_j / src_j) if in_j >= TURNED_J else None
         out["dump"] = {"excused_wh": _r(self.dump_excused_j / WH),
+                       "from_storage_wh": _r(self.dump_store_j / WH),
                        "while_store_had_room_wh": _r(self.dump_waste_j / WH),
-                       "while_store_had_room_share": _r(self.dump_waste_j / in_j)
-                       if in_j > 0 else None}
+                       "while_store_had_room_share": _r(self.dump_waste_j / src_j)
+                       if in_j >= TURNED_J else None}
         out["acceptance"] = self._acceptance()
         out["time_to_absorption_s"] = _r(self.t_abs)
         out["time_to_float_s"] = _r(self.t_float)
@@ -441,14 +487,21 @@ class ServiceMeter:
             d["null_reason"] = "the source's best power was not defined in some periods"
             return d
         d["offered_wh"] = _r(self.offered_j / WH)
-        if self.offered_j <= 1.0:
-            d["null_reason"] = "the source offered no energy (%.3g J)" % self.offered_j
+        if self.offered_j < TURNED_J:
+            d["null_reason"] = ("the source offered almost nothing (%.3g J, less than %.0f J)"
+                                % (self.offered_j, TURNED_J))
+            return d
+        if delivered_j < 0.0:
+            d["null_reason"] = ("the stores gave out %.3g Wh more than the stores and loads "
+                                "gained: what was delivered is not the source's harvest"
+                                % (-delivered_j / WH))
             return d
         d["ratio"] = _r(delivered_j / self.offered_j)
         return d
 
     def _acceptance(self):
-        d = {"ratio": None, "bulk_s": _r(self.bulk_s), "mean_a": None, "possible_a": None,
+        d = {"ratio": None, "bulk_s": _r(self.bulk_s), "judged_s": None, "mean_a": None,
+             "possible_a": None,
              "limit_a": _r(self.lim_a), "null_reason": None}
         if self.bulk_s <= 0.0:
             d["null_reason"] = "the battery was never in bulk"
@@ -458,12 +511,14 @@ class ServiceMeter:
             d["null_reason"] = ("what the source could give is not defined: "
                                 + (self.best.null_reason or "no best power in some periods"))
             return d
-        d["possible_a"] = _r(self.bulk_poss_as / self.bulk_s)
-        if self.bulk_poss_as <= ACCEPT_FLOOR * self.lim_a * self.bulk_s:
-            d["null_reason"] = ("the source could give the battery almost nothing in bulk (less "
-                                "than %.0f %% of its charge limit on average)" % (100 * ACCEPT_FLOOR))
+        d["judged_s"] = _r(self.accept_s)
+        if self.accept_s < ACCEPT_MIN_S:
+            d["null_reason"] = ("the source could give the battery %.0f %% of its charge limit "
+                                "or more for only %.1f s of bulk (less than %.0f s)"
+                                % (100 * ACCEPT_FLOOR, self.accept_s, ACCEPT_MIN_S))
             return d
-        d["ratio"] = _r(self.bulk_as / self.bulk_poss_as)
+        d["possible_a"] = _r(self.bulk_poss_as / self.accept_s)
+        d["ratio"] = _r(self.accept_as / self.bulk_poss_as)
         return d
 
     def _most_in_window(self):
@@ -489,7 +544,8 @@ class ServiceMeter:
         if batt_here and turned:
             need, parts = self.need_emf_v()
             emf = out["source"]["emf_max_v"]
-            if emf < need:
+            below = emf < need
+            if below:
                 w.append(("source_below_battery",
                           "the machine's EMF peaked at %.2f V (K_e %g V/krpm at %.0f rpm, the "
                           "drive's top speed, at %.1f s); charging the battery needs %.2f V (%s):"
@@ -497,17 +553,16 @@ class ServiceMeter:
                                                 self.rpm_max, self.t_rpm_max, need, parts,
                                                 need - emf)))
             if (net_ah <= NO_CHARGE_AH and self.t_abs is None
-                    and sc.doc["battery"]["soc0"] < FULL_SOC):
-                bl = out["blocked"]
-                why = ""
-                if bl["total_s"]:
-                    why = "; blocked %.0f s (%s)" % (bl["total_s"], ", ".join(
-                        "%s %.0f s" % kv for kv in bl["reasons_s"].items()))
-                w.append(("no_charge",
-                          "the battery gained no charge (net %+.3f Ah, %.3f Ah in at its "
-                          "terminals) although the drive put in %.2f Wh%s" % (
-                              net_ah, self.ah_in_as / 3600.0, led["drive_in_j"] / WH, why)))
-        if in_j > 0 and self.dump_waste_j > DUMP_WASTE_SHARE * in_j:
+                    and sc.doc["battery"]["soc0"] < FULL_SOC and not below):
+                w.append(self._no_charge(led, net_ah, out))
+        if self.dump_store_j > STORAGE_DUMP_J:
+            w.append(("dump_from_storage",
+                      "the dump load burnt %.3f Wh drained from the stores (more than the source "
+                      "put on the bus in the same periods: the battery or the bank fed the dump "
+                      "through its OR-ing diode); the controller switched the dump on with the bus "
+                      "below the stores (warning above %.2f Wh)"
+                      % (self.dump_store_j / WH, STORAGE_DUMP_J / WH)))
+        if in_j >= TURNED_J and self.dump_waste_j > DUMP_WASTE_SHARE * in_j:
             w.append(("dump_waste",
                       "the dump load took %.2f Wh (%.1f %% of the input %.2f Wh) while a store "
                       "was below its ceiling and its current limit and could have taken it "
@@ -541,6 +596,37 @@ class ServiceMeter:
                           "%.0f times the %.0f s hold" % (i + 1, self.tail_a, tail,
                                                           tail / tail_hold_s, tail_hold_s)))
         return [{"code": c, "message": m} for c, m in w]
+
+    def _no_charge(self, led, net_ah, out):
+        """The battery gained no charge although the source turned and could reach it: say
+        whether the controller refused (a block), the site is too weak for its loads, or the
+        controller failed to charge. (code, message)"""
+        got = "the battery gained no charge (net %+.3f Ah, %.3f Ah in at its terminals)" % (
+            net_ah, self.ah_in_as / 3600.0)
+        bl = out["blocked"]
+        reasons = ", ".join("%s %.0f s" % kv for kv in bl["reasons_s"].items())
+        if self.blocked_s >= BLOCKED_SHARE * self.connected_s:
+            return ("charge_blocked",
+                    "%s: the controller held charging blocked for %.0f of the %.0f s the battery "
+                    "was connected (%s); a protective refusal (battery outside its temperature "
+                    "window, a sensor fault, the battery absent), not a charging failure"
+                    % (got, self.blocked_s, self.connected_s, reasons))
+        need_j = led["usb_out_j"] / self.eta_usb + led["loads_out_j"] / self.eta_b
+        base_j, base = self.offered_j, "the source's best"
+        if self.best.kind is None or self.offered_nan:
+            base_j, base = led["drive_in_j"], "the drive's input"
+        if need_j >= base_j:
+            return ("loads_exceed_source",
+                    "%s: the loads took more than the source gave: USB and loads took %.2f Wh at "
+                    "the bus against %.2f Wh, %s; the battery covered the rest. The site is too "
+                    "weak for its loads, not a controller failure" % (
+                        got, need_j / WH, base_j / WH, base))
+        why = "; blocked %.0f s (%s)" % (bl["total_s"], reasons) if bl["total_s"] else ""
+        return ("no_charge",
+                "%s although the drive put in %.2f Wh and the source offered %.2f Wh against "
+                "%.2f Wh the USB and loads took at the bus: the source could have covered the "
+                "loads and charged%s" % (got, led["drive_in_j"] / WH, base_j / WH, need_j / WH,
+                                          why))
 
     def need_emf_v(self):
         """The EMF the machine must reach to push charge into the battery at its lowest true
@@ -591,7 +677,7 @@ def mismatches(sc):
 # ---- campaigns (fuzz, sweep) ------------------------------------------------------------------
 # the service figures a campaign keeps per run, and which way is worse
 FIGURES = (("harvest_ratio", "low"), ("acceptance_ratio", "low"), ("dump_share", "high"),
-           ("dump_room_share", "high"))
+           ("dump_room_share", "high"), ("dump_storage_wh", "high"))
 
 
 def brief(sv):
@@ -603,6 +689,7 @@ def brief(sv):
             "acceptance_ratio": sv["acceptance"]["ratio"],
             "dump_share": sv["dump_share"],
             "dump_room_share": sv["dump"]["while_store_had_room_share"],
+            "dump_storage_wh": sv["dump"]["from_storage_wh"],
             "batt_net_ah": sv["battery_ah"]["net"]}
 
 

@@ -239,7 +239,8 @@ def register(sub):
                     "Exit status: 0 every limit held and the system did its job; 1 a limit was "
                     "crossed (saying which, when and by how much; wins over 3); 2 bad input; 3 "
                     "every limit held but a service warning was raised (no_charge, "
-                    "source_below_battery, profile_mismatch, dump_waste, stage_chatter, "
+                    "loads_exceed_source, charge_blocked, source_below_battery, "
+                    "dump_from_storage, profile_mismatch, dump_waste, stage_chatter, "
                     "absorption_stuck: printed on stderr and in summary.json service.warnings). "
                     "SCENARIO is a JSON file or a built-in name (%s). Formats: docs/scenario.md, "
                     "docs/simulate.md." % names)

@@ -4,8 +4,8 @@
 # all of them or a Dask cluster. Every drawn scenario is validated before anything runs.
 # Writes sweep.csv (one row per sample), sweep.png (histograms of the margins, the limit
 # marked, and of the energy delivered) and sweep_summary.json; prints the worst case per limit.
-# Exit status: 0 every limit held in every sample, 1 a limit crossed, 2 bad input, 3 the sweep
-# could not finish. Service warnings (host_sim/service.py) are counted per code and reported
+# Exit status: 0 every limit held in every sample, 1 a limit crossed, 2 bad input, 4 the sweep
+# could not finish (distrib.EXIT_LOST, as an internal error). Service warnings (host_sim/service.py) are counted per code and reported
 # beside the limits; they do not change the exit status. Grammar and examples: docs/fuzz.md.
 import copy
 import csv
@@ -503,8 +503,8 @@ def register(sub):
                     "and i alone. Writes sweep.csv, sweep.png and sweep_summary.json to --out. "
                     "Service warnings (a sample that did not do its job) are counted per code and "
                     "reported with the worst service figures; they do not change the exit status. "
-                    "Exit 0: every limit held; 1: a limit crossed; 2: bad input; 3: the sweep "
-                    "could not finish. Guide: docs/fuzz.md.")
+                    "Exit 0: every limit held; 1: a limit crossed; 2: bad input; 4: the sweep "
+                    "could not finish (a worker died, the cluster went away) or an internal error. Guide: docs/fuzz.md.")
     sp.add_argument("scenario", metavar="SCENARIO", help="scenario file or built-in name")
     sp.add_argument("--vary", action="append", metavar="FIELD=DIST",
                     help="a field and its distribution (repeat for more fields)")
