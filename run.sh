@@ -32,6 +32,7 @@ setup_system() {
   local missing=()
   command -v ngspice >/dev/null 2>&1 || missing+=(ngspice)
   command -v valgrind >/dev/null 2>&1 || missing+=(valgrind)
+  command -v chromium >/dev/null 2>&1 || missing+=(chromium)
   [ ${#missing[@]} -eq 0 ] && return 0
   local sudo=""
   [ "$(id -u)" = 0 ] || sudo="sudo -n"
