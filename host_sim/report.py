@@ -556,6 +556,7 @@ def _batt_a(pn, c):
                                  label="peak %.2f A at %.1f s: one period, excepted by the rule"
                                  % (x.peak, x.t_peak_s)))
     _mark(pn, "batt_current", c)
+    pn.levels.append(0.0)  # charging or discharging: zero in view
     pn.fit(min_span=0.5)
     a.set_ylabel("A", fontsize=8)
     pn.finish()

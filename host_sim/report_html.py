@@ -28,6 +28,7 @@ td.no { color: #c62828; font-weight: bold; }
 .warn li { margin: .25em 0; } .code { font-family: monospace; font-weight: bold; }
 img.panels { width: 100%; max-width: 1280px; border: 1px solid #ddd; }
 .group { font-weight: bold; }
+.nav { font-size: .9em; color: #444; } .nav a { color: #0b5cad; }
 """
 
 
@@ -150,7 +151,11 @@ def page(summ, png):
              '<p class="facts">%s; %.0f s simulated, seed %s, %d control periods in %.2f s '
              "(x%.0f)</p>" % (_e(summ["source"]), summ["duration_s"], _e(summ["seed"]),
                               summ["ticks"], summ["wall_s"], summ["sim_speedup"]),
-             '<div id="verdict" class="verdict %s">%s</div>' % (_e(v), _e(line))]
+             '<div id="verdict" class="verdict %s">%s</div>' % (_e(v), _e(line)),
+             '<p class="nav">On this page: <a href="#warnings">service warnings</a> · '
+             '<a href="#limits">limits</a> · <a href="#service">service figures</a> · '
+             '<a href="#energy">energy</a> · <a href="#run">the run</a> · '
+             '<a href="#panels">panels</a></p>']
     crossed = [(k, d) for k, d in summ["limits"].items() if not d["held"]]
     if crossed:
         parts.append("<h2>Limits crossed</h2><ul>")
@@ -160,23 +165,23 @@ def page(summ, png):
                              _e(k), d["first_crossed_s"], d["worst"], _e(d["unit"]), d["limit"],
                              _e(d["unit"]), -d["margin"], _e(d["unit"])))
         parts.append("</ul>")
-    parts.append("<h2>Service warnings</h2>")
+    parts.append('<h2 id="warnings">Service warnings</h2>')
     if warnings:
         parts.append('<ul class="warn">' + "".join(
             '<li><span class="code">%s</span>: %s</li>' % (_e(w["code"]), _e(w["message"]))
             for w in warnings) + "</ul>")
     else:
         parts.append("<p>none: the system did its job (docs/simulate.md, service warnings)</p>")
-    parts.append("<h2>Limits (judged on the plant's true values)</h2>")
+    parts.append('<h2 id="limits">Limits (judged on the plant\'s true values)</h2>')
     parts.append(limits_table(summ["limits"]))
     if sv:
-        parts.append("<h2>Service figures</h2>")
+        parts.append('<h2 id="service">Service figures</h2>')
         parts.append(_table(["figure", "value", "unit"],
                             [[(_e(f), None), (t, "num"), (_e(u), None)]
                              for f, t, u in service_rows(sv)]))
-    parts.append("<h2>Energy</h2>")
+    parts.append('<h2 id="energy">Energy</h2>')
     parts.append(energy_table(summ["energy_j"], summ["balance_error_pct"]))
-    parts.append("<h2>The run</h2>")
+    parts.append('<h2 id="run">The run</h2>')
     st = ", ".join("%s %.0f s" % (k, x) for k, x in summ["stage_time_s"].items() if x > 0)
     fin = summ["final"]
     facts = [("battery stages", _e(st) or "-"),
@@ -187,7 +192,7 @@ def page(summ, png):
     if link:
         facts.append(("link (hil)", _e(", ".join("%s %s" % kv for kv in link.items()))))
     parts.append(_table(["", ""], [[(_e(k), None), (x, None)] for k, x in facts]))
-    parts.append("<h2>Panels</h2>")
+    parts.append('<h2 id="panels">Panels</h2>')
     parts.append('<img class="panels" alt="report panels: %s" src="data:image/png;base64,%s">'
                  % (_e(line), base64.b64encode(png).decode("ascii")))
     parts.append("<p class=\"facts\">The same panels are in report.png; every figure and key "

@@ -120,3 +120,24 @@ def test_the_hil_link_figures_are_listed():
     s = dict(summ, link={"board": "virtual", "frames_resent": 0, "rtt_median_ms": 0.4})
     text = report_html.page(s, PNG)
     assert "link (hil)" in text and "board virtual" in text and "rtt_median_ms 0.4" in text
+
+
+def test_hil_writes_report_html_beside_report_png(tmp_path, monkeypatch):
+    """The hil command's own file writing, with the board's run stood in by the held case."""
+    import argparse
+
+    from host_sim import hil
+    res, summ = case("held")
+    figures = {"board": "virtual", "firmware": "f", "profile": "p", "frames_sent": res.ticks,
+               "frames_resent": 0, "ticks": res.ticks, "rtt_median_ms": 0.4,
+               "rtt_p95_ms": 0.6, "rtt_max_ms": 0.9}
+    monkeypatch.setattr(hil, "run_hil", lambda sc, port, progress, every: (res, figures, None))
+    path = tmp_path / "site.json"
+    path.write_text(json.dumps(docs()["held"]))
+    out = tmp_path / "hil"
+    rc = hil.cmd_hil(argparse.Namespace(scenario=str(path), port="virtual", out=str(out),
+                                        every=1, quiet=True))
+    assert rc == 0
+    text = (out / "report.html").read_text(encoding="utf-8")
+    assert "board virtual" in text and Page(text).by_id["verdict"].startswith("HELD")
+    assert (out / "report.png").exists() and no_outside_reference(text)
