@@ -382,12 +382,14 @@ def _key_figures(ax, c):
     s = c.s
     soc0 = c.sc.doc["battery"]["soc0"]
     soc1 = float(s["batt_soc"][-1]) if len(s["batt_soc"]) else soc0
-    lines = ["Service figures (summary.json service)"] + key_lines(c.sv, soc0, soc1)
+    lines = ["Service figures (summary.json service)"]
+    for ln in key_lines(c.sv, soc0, soc1):
+        lines += textwrap.wrap(ln, 76, subsequent_indent="  ")
     warn = c.sv.get("warnings") or []
     lines.append("")
     lines.append("Service warnings: %s" % ("none" if not warn else len(warn)))
     for w in warn:
-        lines += textwrap.wrap("%s: %s" % (w["code"], w["message"]), 90,
+        lines += textwrap.wrap("%s: %s" % (w["code"], w["message"]), 76,
                                subsequent_indent="  ")
     if len(lines) > 17:
         lines = lines[:16] + ["... (all of them in report.html and summary.json)"]
@@ -518,8 +520,14 @@ def _stage_shading(a, c):
     return seen
 
 
+def _no_battery(pn, c):
+    if not c.sc.doc["battery"]["present"]:
+        pn.title += ": no battery in this scenario"
+
+
 def _batt_v(pn, c):
     s, t, p, a = c.s, c.t, c.p, pn.ax
+    _no_battery(pn, c)
     shade = _stage_shading(a, c)
     margin = p.over_margin_mv / 1000
     pn.trace(t, s["batt_v"], "battery V", color="#000000")
@@ -541,6 +549,7 @@ def _batt_v(pn, c):
 
 def _batt_a(pn, c):
     s, t, p, a = c.s, c.t, c.p, pn.ax
+    _no_battery(pn, c)
     lim_a = p.chg_limit_ma / 1000
     a.axhspan(lim_a, lim_a * BATT_A_TOL, color="#f4c7c3", lw=0, zorder=0)
     pn.trace(t, s["batt_a"], "battery A (+ charging)", color="#1f77b4", lw=0.7)
@@ -564,6 +573,7 @@ def _batt_a(pn, c):
 
 def _batt_temp(pn, c):
     s, t, p, a = c.s, c.t, c.p, pn.ax
+    _no_battery(pn, c)
     t_lo, t_hi = p.temp_min_dc / 10, p.temp_max_dc / 10
     pn.trace(t, s["batt_temp_c"], "battery temperature (C)", color="#d62728", lw=0.9)
     pn.fit(min_span=4.0)
@@ -693,8 +703,10 @@ def _energy(a, led):
     top = max([abs(v) for v in vals] + [1e-3])
     lo = min(min(vals), 0.0)
     a.set_xlim(lo - 0.12 * top if lo < 0 else 0.0, max(max(vals), 0.0) + 0.14 * top)
+    nd = 2 if top >= 1.0 else (3 if top >= 0.1 else 4)  # a short run's Wh still read
     for yy, v in zip(y, vals):
-        a.text(v + (0.005 * top if v >= 0 else -0.005 * top), yy, " %.2f Wh " % v,
+        v_txt = 0.0 if abs(v) < 0.5 * 10 ** -nd else v  # no "-0.00"
+        a.text(v + (0.005 * top if v >= 0 else -0.005 * top), yy, " %.*f Wh " % (nd, v_txt),
                va="center", ha="left" if v >= 0 else "right", fontsize=8)
     tr = blended_transform_factory(a.transAxes, a.transData)
     for g, ys in groups.items():
