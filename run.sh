@@ -38,6 +38,8 @@ setup_system() {
   [ -e /usr/lib/arm-none-eabi/include/stdio.h ] || [ -e /usr/include/newlib/stdio.h ] ||
     missing+=(libnewlib-arm-none-eabi)
   command -v qemu-system-arm >/dev/null 2>&1 || missing+=(qemu-system-arm)
+  # the browser that renders report.html in the report tests
+  command -v chromium >/dev/null 2>&1 || missing+=(chromium)
   [ ${#missing[@]} -eq 0 ] && return 0
   local sudo=""
   [ "$(id -u)" = 0 ] || sudo="sudo -n"

@@ -101,7 +101,7 @@ def cmd_hil(args):
     out.mkdir(parents=True, exist_ok=True)
     write_timeseries(result, out / "timeseries.csv")
     write_json(out / "summary.json", summ)
-    report.write(result, out / "report.png", summ["verdict"])
+    report.write_reports(result, summ, out)
     print("link: board %s, %d ticks, %d frames resent, round trip median %.2f ms (p95 %.2f, max "
           "%.2f)" % (figures["board"], figures["ticks"], figures["frames_resent"],
                      figures["rtt_median_ms"], figures["rtt_p95_ms"], figures["rtt_max_ms"]))

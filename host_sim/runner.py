@@ -27,6 +27,8 @@ COLUMNS = (
     ("p_ideal_w", "W", "wind/hydro: max steady-state electrical power at this wind speed"),
     ("p_best_w", "W", "the source's best electrical power this period (service.BestPower; "
      "blank where not defined)"),
+    ("wind_ms", "m/s", "wind drives: wind speed this period (blank for other drives)"),
+    ("flow_lps", "l/s", "hydro drives: water flow this period (blank for other drives)"),
     ("bus_v", "V", "rectified bus"),
     ("src_a", "A", "current from the bridge into the bus"),
     ("batt_v", "V", "battery terminal voltage"),
@@ -127,6 +129,8 @@ def run(sc, progress=True, every=None, controller=None):
     n = int(round(sc.duration_s * 1000.0 / period_ms))
     checker = LimitChecker.for_scenario(sc)  # judged from the profile document, not from p
     meter = ServiceMeter(sc, plant, dt_s)
+    drive = plant.drive
+    hydro = drive.kind == "hydro"  # its flow is drive.strength (the wind speed is in s)
     if every is None:
         every = auto_every(n)
     # one column a row of this buffer: each kept period is written in place, nothing grows
@@ -147,7 +151,8 @@ def run(sc, progress=True, every=None, controller=None):
         checker.check(t_s, s, c, c.stage)
         meter.period(t_s, s, c)
         if k % every == 0:
-            rows[:, j] = _row(s, c, checker.doc, meter.p_best)
+            rows[:, j] = _row(s, c, checker.doc, meter.p_best,
+                              drive.strength if hydro else math.nan)
             j += 1
         now_ms = (now_ms + period_ms) & TICKS_MASK
         if (k & 255) == 0:
@@ -163,13 +168,13 @@ def run(sc, progress=True, every=None, controller=None):
     return res
 
 
-def _row(s, c, lims, p_best=math.nan):
+def _row(s, c, lims, p_best=math.nan, flow_lps=math.nan):
     """lims: the checker's limits of the profile document (limitcheck.DocLimits)."""
     stage = c.stage
     ceil = ceiling_v(lims, stage, s["batt_temp_c"]) if stage != ST_BLOCKED else math.nan
     return (s["t_s"], s["drive_rpm"], s["machine_rpm"], s["p_in_w"], s["p_elec_w"],
-            s.get("p_ideal_w", math.nan), p_best, s["bus_v"], s["src_a"], s["batt_v"],
-            s["batt_a"], s["batt_temp_c"], s["batt_soc"], stage, ceil, s["cap_v"], s["cap_a"],
-            s["cell_v_max"], s["usb_vbus_v"], s["usb_a"], c.usb_conv, c.usb_on, s["loads_w"],
-            1 if c.dump_duty > 0 else 0, c.batt_duty, c.cap_duty, c.dump_duty, c.fault)
-
+            s.get("p_ideal_w", math.nan), p_best, s.get("wind_ms", math.nan), flow_lps,
+            s["bus_v"], s["src_a"], s["batt_v"], s["batt_a"], s["batt_temp_c"], s["batt_soc"],
+            stage, ceil, s["cap_v"], s["cap_a"], s["cell_v_max"], s["usb_vbus_v"], s["usb_a"],
+            c.usb_conv, c.usb_on, s["loads_w"], 1 if c.dump_duty > 0 else 0, c.batt_duty,
+            c.cap_duty, c.dump_duty, c.fault)

@@ -1,5 +1,6 @@
 # `spinrail simulate SCENARIO --out DIR` and `spinrail demo`: the main job. Runs the controller
-# against the plant in closed loop and writes timeseries.csv, summary.json and report.png.
+# against the plant in closed loop and writes timeseries.csv, summary.json, report.png and
+# report.html.
 # Exit status: 0 every limit held and the system did its job, 1 a limit was crossed (which,
 # when, by how much; wins over 3), 2 bad input, 3 every limit held but a service warning was
 # raised (host_sim/service.py: it did not do its job).
@@ -192,14 +193,15 @@ def simulate(name_or_path, out_dir, every=None, progress=True):
         def fill(d):
             write_timeseries(result, d / "timeseries.csv")
             write_json(d / "summary.json", summ)
-            report.write(result, d / "report.png", summ["verdict"])
-        out.write(fill)  # the three files replace the folder's set as one
+            report.write_reports(result, summ, d)  # report.png and report.html
+        out.write(fill)  # the four files replace the folder's set as one
     return result, summ
 
 
 def finish(result, summ, out_dir):
     print_table(summ)
-    print("wrote %s/{timeseries.csv, summary.json, report.png}" % out_dir, file=sys.stderr)
+    print("wrote %s/{timeseries.csv, summary.json, report.png, report.html}" % out_dir,
+          file=sys.stderr)
     crossed = [(k, d) for k, d in summ["limits"].items() if not d["held"]]
     for k, d in crossed:
         print("spinrail: limit %s crossed at %.2f s: worst %.4g %s against %.4g %s (by %.4g)" % (
@@ -233,9 +235,10 @@ def register(sub):
     sp = sub.add_parser(
         "simulate", help="run a scenario in closed loop and report every limit",
         description="Run the controller against the plant simulator in closed loop. Writes "
-                    "timeseries.csv, summary.json and report.png to --out, prints a summary table "
-                    "of every limit and the service figures (energy in Wh and Ah, harvest, dump "
-                    "share, bulk acceptance, time to absorption and float, USB, blocked time). "
+                    "timeseries.csv, summary.json, report.png and report.html to --out, prints a "
+                    "summary table of every limit and the service figures (energy in Wh and Ah, "
+                    "harvest, dump share, bulk acceptance, time to absorption and float, USB, "
+                    "blocked time). "
                     "Exit status: 0 every limit held and the system did its job; 1 a limit was "
                     "crossed (saying which, when and by how much; wins over 3); 2 bad input; 3 "
                     "every limit held but a service warning was raised (no_charge, "

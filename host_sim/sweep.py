@@ -3,9 +3,13 @@
 # seeded with (seed, i) alone, so the same seed gives the same samples and results on one core,
 # all of them or a Dask cluster. Every drawn scenario is validated before anything runs.
 # Writes sweep.csv (one row per sample), sweep.png (histograms of the margins, the limit
-# marked, and of the energy delivered) and sweep_summary.json; prints the worst case per limit.
+# marked, and of the energy delivered), sweep_values.png (each worst margin and service figure
+# against each varied value, flagged samples marked: host_sim/sweep_plots.py) and
+# sweep_summary.json; prints the worst case per limit and the flagged samples (blocked for
+# most of the run, never charged).
 # Exit status: 0 every limit held in every sample, 1 a limit crossed, 2 bad input, 4 the sweep
-# could not finish (distrib.EXIT_LOST, as an internal error). Service warnings (host_sim/service.py) are counted per code and reported
+# could not finish (distrib.EXIT_LOST, as an internal error). Service warnings
+# (host_sim/service.py) are counted per code and reported
 # beside the limits; they do not change the exit status. Grammar and examples: docs/fuzz.md.
 import copy
 import csv
@@ -19,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-from host_sim import distrib, scenario_gen, service
+from host_sim import distrib, scenario_gen, service, sweep_plots
 from host_sim.errors import UserError
 from host_sim.fileio import atomic_open, atomic_path, write_json
 
@@ -201,7 +205,7 @@ def run_chunk(ctx, task):
     for i, values in zip(range(i0, i1), vals):
         doc = sample_doc(ctx["raw"], ctx["paths"], values, i)
         rec = {"i": i, "values": values, "limits": None, "energy": None, "error": None,
-               "service": None}
+               "service": None, "blocked_share": None, "flags": []}
         try:
             res = runner.run(load_doc(doc, "<sweep sample %d>" % i), progress=False, every=1 << 30)
         except Exception as e:
@@ -213,8 +217,40 @@ def run_chunk(ctx, task):
             rec["energy"] = {k: round(res.ledger.get(k, 0.0), 3) for k in ENERGY_COLS}
             rec["energy"]["balance_error_pct"] = round(res.ledger["balance_error_pct"], 5)
             rec["service"] = service.brief(res.service)
+            rec["blocked_share"] = blocked_share(res.service, res.scenario.duration_s)
+            rec["flags"] = flags(rec)
         out.append(rec)
     return out
+
+
+# ---- flagged samples ---------------------------------------------------------------------------
+# A sample is flagged "blocked" when the controller reported the battery stage blocked for at
+# least this share of the run (most of it: a trip or a short fault is not what a sweep is
+# looking for; ours), and "never_charged" when it raised the service warning no_charge (the
+# battery gained no charge although the source turned: host_sim/service.py).
+BLOCKED_SHARE = 0.5
+FLAGS = ("blocked", "never_charged")
+
+
+def blocked_share(sv, duration_s):
+    if not sv or not duration_s:
+        return None
+    return round(sv["blocked"]["total_s"] / duration_s, 4)
+
+
+def flags(rec):
+    out = []
+    b = rec.get("blocked_share")
+    if b is not None and b >= BLOCKED_SHARE:
+        out.append("blocked")
+    if "no_charge" in (rec.get("service") or {}).get("warnings", ()):
+        out.append("never_charged")
+    return out
+
+
+def flagged(records):
+    """flag -> [sample numbers]."""
+    return {f: [r["i"] for r in records if f in (r.get("flags") or ())] for f in FLAGS}
 
 
 class Sweep:
@@ -307,7 +343,7 @@ def write_csv(sw, path):
     for k in names:
         head += ["%s_held" % k, "%s_margin" % k, "%s_worst" % k]
     head += list(ENERGY_COLS) + ["balance_error_pct", "service_warnings"]
-    head += [k for k, _ in service.FIGURES]
+    head += [k for k, _ in service.FIGURES] + ["blocked_share", "flags"]
     w.writerow(head)
     for r in sw.records:
         row = [r["i"]] + [_cell(x) for x in r["values"]]
@@ -321,6 +357,7 @@ def write_csv(sw, path):
         row += [_cell(e.get(k)) for k in ENERGY_COLS + ("balance_error_pct",)]
         sv = r.get("service") or {}
         row += [" ".join(sv.get("warnings", ()))] + [_cell(sv.get(k)) for k, _ in service.FIGURES]
+        row += [_cell(r.get("blocked_share")), " ".join(r.get("flags") or ())]
         w.writerow(row)
     with atomic_open(path) as f:
         f.write(buf.getvalue())
@@ -419,9 +456,21 @@ def print_table(sw, out=None):
             print("%-22s %10.3f %10.3f %10.3f" % ("to " + label, min(e), float(np.median(e)),
                                                    max(e)), file=out)
     service.print_campaign(sw.records, "sample", "i", out)
+    print_flags(sw.records, out)
     errs = [r for r in sw.records if r["error"]]
     for r in errs[:5]:
         print("sample %d raised: %s" % (r["i"], r["error"]), file=out)
+
+
+def print_flags(records, out):
+    fl = flagged(records)
+    n = len(records)
+
+    def some(ids):
+        return "%d of %d%s" % (len(ids), n, " (samples %s%s)" % (
+            ", ".join(str(i) for i in ids[:12]), ", ..." if len(ids) > 12 else "") if ids else "")
+    print("flagged: blocked for %.0f %% of the run or more: %s; never charged (no_charge): %s"
+          % (100 * BLOCKED_SHARE, some(fl["blocked"]), some(fl["never_charged"])), file=out)
 
 
 def _fmt(x):
@@ -468,6 +517,7 @@ def cmd_sweep(args):
                progress=not args.quiet)
     write_csv(sw, out / "sweep.csv")
     write_png(sw, out / "sweep.png")
+    sweep_plots.write_values_png(sw, out / "sweep_values.png")
     files = write_failures(sw, out)
     worst = worst_by_limit(sw)
     write_json(out / "sweep_summary.json", {
@@ -482,12 +532,14 @@ def cmd_sweep(args):
             "warnings": service.counts(sw.records),
             "worst": {k: {"value": x, "sample": r["i"]}
                       for k, (x, r) in service.worst(sw.records).items()}},
+        "flags": dict(flagged(sw.records), blocked_share_at_least=BLOCKED_SHARE),
         "files": [{"limits": ks, "sample": i, "file": str(p)} for ks, i, p in files]})
     print_table(sw)
     for ks, i, p in files:
         print("replay sample %d (%s): spinrail simulate %s --out %s" % (
             i, ", ".join(ks), p, out / ("replay_sample%d" % i)))
-    print("wrote %s/{sweep.csv, sweep.png, sweep_summary.json}" % out, file=sys.stderr)
+    print("wrote %s/{sweep.csv, sweep.png, sweep_values.png, sweep_summary.json}" % out,
+          file=sys.stderr)
     return 1 if sw.crossed() else 0
 
 
@@ -500,11 +552,15 @@ def register(sub):
                     "usb.devices[0].max_a; docs/scenario.md lists them); DIST is uniform(lo,hi), "
                     "normal(mean,sd), pct(p) (+/- p % uniform around the scenario's value), "
                     "int(lo,hi), loguniform(lo,hi) or choice(a,b,...). Sample i depends on --seed "
-                    "and i alone. Writes sweep.csv, sweep.png and sweep_summary.json to --out. "
-                    "Service warnings (a sample that did not do its job) are counted per code and "
-                    "reported with the worst service figures; they do not change the exit status. "
+                    "and i alone. Writes sweep.csv, sweep.png, sweep_values.png (each worst "
+                    "margin and service figure against each varied value) and sweep_summary.json "
+                    "to --out. Service warnings (a sample that did not do its job) are counted per "
+                    "code and reported with the worst service figures, and samples blocked for "
+                    "most of the run or never charged are flagged; they do not change the exit "
+                    "status. "
                     "Exit 0: every limit held; 1: a limit crossed; 2: bad input; 4: the sweep "
-                    "could not finish (a worker died, the cluster went away) or an internal error. Guide: docs/fuzz.md.")
+                    "could not finish (a worker died, the cluster went away) or an internal "
+                    "error. Guide: docs/fuzz.md.")
     sp.add_argument("scenario", metavar="SCENARIO", help="scenario file or built-in name")
     sp.add_argument("--vary", action="append", metavar="FIELD=DIST",
                     help="a field and its distribution (repeat for more fields)")
