@@ -408,7 +408,6 @@ def _crossing_marks(result, t):
     series (a proxy of the checker's own test, which sees every period)."""
     s = result.series
     p = result.scenario.profile
-    from host_sim.runner import bus_limit_v
     with np.errstate(invalid="ignore"):
         charging = s["batt_a"] > CHARGING_A
         judged = np.where(np.isnan(s["ceiling_v"]), 0.0, s["ceiling_v"] + p.over_margin_mv / 1000)
@@ -421,7 +420,7 @@ def _crossing_marks(result, t):
             "cap_cell": (s["cell_v_max"] > p.cap_cell_rating_mv / 1000, s["cell_v_max"]),
             "usb_vbus": ((s["usb_on"] > 0) & ((s["usb_vbus_v"] < lo) | (s["usb_vbus_v"] > hi)),
                          s["usb_vbus_v"]),
-            "bus": (s["bus_v"] > bus_limit_v(result.scenario, p), s["bus_v"]),
+            "bus": (s["bus_v"] > _bus_limit_v(result.scenario), s["bus_v"]),
         }
     return {k: (t[mask], y[mask]) for k, (mask, y) in m.items()}
 
@@ -490,13 +489,18 @@ def _drive(pn, c):
     pn.finish(pw.handles)
 
 
+def _bus_limit_v(sc):
+    """The bus limit as the limit check judges it (limitcheck: from the profile document)."""
+    from host_sim.limitcheck import bus_limit_v
+    return bus_limit_v(sc.profile_doc, sc.clamp_margin_v)
+
+
 def _bus(pn, c):
-    from host_sim.runner import bus_limit_v
     s, t, p, a = c.s, c.t, c.p, pn.ax
     for x0, x1 in _spans(t, s["dump_on"] > 0):
         a.axvspan(x0, x1, color="#ffbb78", alpha=0.6, lw=0)
     pn.trace(t, s["bus_v"], "bus", color="#333333", lw=0.7)
-    pn.level(bus_limit_v(c.sc, p), _judged_label("bus", "trip + clamp margin", c, "V"),
+    pn.level(_bus_limit_v(c.sc), _judged_label("bus", "trip + clamp margin", c, "V"),
              judged=True)
     pn.level(p.ovp_trip_mv / 1000, "overvoltage trip")
     pn.level(p.ovp_recover_mv / 1000, "recovery", ls=":")

@@ -665,7 +665,8 @@ def _physical(v, out, prof):
                       "a drive shaft a person or a small rotor turns")
     sc = out["supercap"]
     clamp_v = prof.cap_clamp_mv / 1000.0
-    if sc["present"] and sc["cells"] * sc["v0_per_cell"] > clamp_v:
+    # compared in whole mV, as the profile holds the clamp: 6 x 2.43 V is the clamp, not above
+    if sc["present"] and round(sc["cells"] * sc["v0_per_cell"] * 1000) > prof.cap_clamp_mv:
         v.err("supercap.v0_per_cell", sc["v0_per_cell"], "0 to %g V: the bank of %d cells would "
               "start at %g V, above the profile's clamp %g V" % (
                   clamp_v / sc["cells"], sc["cells"], sc["cells"] * sc["v0_per_cell"], clamp_v),

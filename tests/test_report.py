@@ -13,7 +13,7 @@ from matplotlib.lines import Line2D
 from controller.signals import FAULT_NAMES
 from host_sim import report
 from host_sim.limitcheck import BATT_A_TOL, CAP_TOL
-from host_sim.runner import bus_limit_v
+from host_sim.limitcheck import bus_limit_v
 from report_cases import case
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948, section 5.2)
@@ -77,7 +77,7 @@ def test_every_judged_limit_is_drawn_at_its_value_and_in_view(held):
     res, _, fig = held
     p = res.scenario.profile
     want = {
-        "Bus": [bus_limit_v(res.scenario, p)],
+        "Bus": [bus_limit_v(res.scenario.profile_doc, res.scenario.clamp_margin_v)],
         "Battery current": [p.chg_limit_ma / 1000 * BATT_A_TOL],
         "Supercap bank": [p.cap_clamp_mv / 1000 * CAP_TOL],
         "Supercap cells": [p.cap_cell_rating_mv / 1000],

@@ -123,8 +123,10 @@ def test_the_rise_bound_separates_the_periods_that_hold_from_those_that_cannot()
     66 % of the rider power bound, took the bus over its limit at a 50 ms period. With the
     stores full (only the dump can take the rider's power) the strong crank, its torque at
     95 % of the bound's cap for a 20 ms period, holds at 20 ms whatever the rise time (down to
-    one period); at 50 ms the bound says it cannot be held (its one-period rise is 2.5 times
-    the room), and the plant crosses."""
+    one period); at 50 ms the bound makes no promise (its one-period rise is 2.5 times the
+    room). The bound is sufficient, not necessary: since the controller puts the dump on when
+    a converter steps off a rising bus, that 50 ms case holds too (25.9 V seen), so only the
+    bound's verdict is asserted there."""
     from host_sim import runner
     hold_w, _ = envelope.scenario_hold(load_scenario("crank_relief"))
     assert 150.0 < 0.7 * hold_w  # the rider is well inside the steady bound
@@ -139,7 +141,6 @@ def test_the_rise_bound_separates_the_periods_that_hold_from_those_that_cannot()
     sc = load_doc(doc, src)
     r = envelope.scenario_rise(sc)
     assert not r["inside"] and r["rise_v"] > 2.0 * r["room_v"]
-    assert not runner.run(sc, progress=False).limits["bus"].held
 
 
 # ---- the generator draws inside the envelope ------------------------------------------------
