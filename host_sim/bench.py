@@ -166,32 +166,37 @@ _REPLY_S = 2.0  # per lock-step reply (a pass takes well under a millisecond)
 def entry_runs(folder, heap_kb, expected, exe=None):
     """Boot the firmware flashed in folder on a virtual board with -X heapsize=heap_kb (the
     boot stub, boards/main.py's two phases, the real stdio stream on the pty) and drive it in
-    lock-step link mode: HELLO, then one MEAS frame per tick with host_sim/mp_bench.py's
-    readings. The run counts only if every tick is answered, no reply carries F_FIRMWARE
+    lock-step link mode (lockstep_run)."""
+    from host_sim.virtualboard import VirtualBoard
+    with VirtualBoard(folder, exe=exe, heap_kb=heap_kb) as vb:
+        return lockstep_run(vb.port, heap_kb, expected)
+
+
+def lockstep_run(port, heap_kb, expected):
+    """HELLO, then one MEAS frame per tick with host_sim/mp_bench.py's readings, on a booted
+    board's port. The run counts only if every tick is answered, no reply carries F_FIRMWARE
     (the firmware catches a MemoryError in a pass and goes safe) and every reply equals
     expected (reference_commands) field by field."""
     from controller.signals import F_FIRMWARE, Measurements
     from host_sim.mp_bench import feed
     from host_sim.seriallink import SerialLink
-    from host_sim.virtualboard import VirtualBoard
-    with VirtualBoard(folder, exe=exe, heap_kb=heap_kb) as vb:
-        with SerialLink(vb.port) as link:
-            try:
-                link.hello(timeout_s=_HELLO_S)
-            except UserError:
-                return FloorRun(heap_kb, False, "did not boot (no HELLO answer)", 0)
-            m = Measurements()
-            t_ms = _FLOOR_T0_MS
-            for k, want in enumerate(expected):
-                feed(m, k)
-                reply = link.step(m, t_ms, timeout_s=_REPLY_S)
-                if reply is None:
-                    return FloorRun(heap_kb, False, "tick %d not answered" % k, k)
-                if reply.c.fault & F_FIRMWARE:
-                    return FloorRun(heap_kb, False, "firmware exception by tick %d" % k, k)
-                if reply.c.__dict__ != want:
-                    return FloorRun(heap_kb, False, "tick %d differs from CPython" % k, k)
-                t_ms = (t_ms + 50) & 0x3FFFFFFF
+    with SerialLink(port) as link:
+        try:
+            link.hello(timeout_s=_HELLO_S)
+        except UserError:
+            return FloorRun(heap_kb, False, "did not boot (no HELLO answer)", 0)
+        m = Measurements()
+        t_ms = _FLOOR_T0_MS
+        for k, want in enumerate(expected):
+            feed(m, k)
+            reply = link.step(m, t_ms, timeout_s=_REPLY_S)
+            if reply is None:
+                return FloorRun(heap_kb, False, "tick %d not answered" % k, k)
+            if reply.c.fault & F_FIRMWARE:
+                return FloorRun(heap_kb, False, "firmware exception by tick %d" % k, k)
+            if reply.c.__dict__ != want:
+                return FloorRun(heap_kb, False, "tick %d differs from CPython" % k, k)
+            t_ms = (t_ms + 50) & 0x3FFFFFFF
     return FloorRun(heap_kb, True, "ok", len(expected))
 
 

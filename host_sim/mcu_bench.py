@@ -9,7 +9,6 @@
 #                              lock-step ticks over the UART, every reply equal to CPython's
 #   mcu_alloc_bytes_per_tick   mp_bench.py "alloc" on the board (gc disabled, net growth)
 import hashlib
-import os
 import shutil
 import subprocess
 import sys
@@ -91,29 +90,9 @@ def instructions_per_tick(fw, folder, n=2000, profile="profile.json"):
 def entry_runs(fw, folder, heap_kb, expected):
     """bench.entry_runs on the emulated board: boot the flashed image with heap_kb, HELLO,
     then one lock-step MEAS per expected tick; every reply must equal CPython's."""
-    from controller.signals import F_FIRMWARE, Measurements
-    from host_sim.bench import FloorRun, _FLOOR_T0_MS
-    from host_sim.mp_bench import feed
-    from host_sim.seriallink import SerialLink
+    from host_sim.bench import lockstep_run
     with emulate.EmulatedBoard(fw, folder, heap_kb=heap_kb, save=False) as eb:
-        with SerialLink(eb.port) as link:
-            try:
-                link.hello(timeout_s=_HELLO_S)
-            except UserError:
-                return FloorRun(heap_kb, False, "did not boot (no HELLO answer)", 0)
-            m = Measurements()
-            t_ms = _FLOOR_T0_MS
-            for k, want in enumerate(expected):
-                feed(m, k)
-                reply = link.step(m, t_ms, timeout_s=_REPLY_S)
-                if reply is None:
-                    return FloorRun(heap_kb, False, "tick %d not answered" % k, k)
-                if reply.c.fault & F_FIRMWARE:
-                    return FloorRun(heap_kb, False, "firmware exception by tick %d" % k, k)
-                if reply.c.__dict__ != want:
-                    return FloorRun(heap_kb, False, "tick %d differs from CPython" % k, k)
-                t_ms = (t_ms + 50) & 0x3FFFFFFF
-    return FloorRun(heap_kb, True, "ok", len(expected))
+        return lockstep_run(eb.port, heap_kb, expected)
 
 
 def heap_floor_kb(fw, folder, n=1000, lo_kb=24, hi_kb=140, log=None):

@@ -226,10 +226,13 @@ def run_chunk(ctx, task):
 # ---- flagged samples ---------------------------------------------------------------------------
 # A sample is flagged "blocked" when the controller reported the battery stage blocked for at
 # least this share of the run (most of it: a trip or a short fault is not what a sweep is
-# looking for; ours), and "never_charged" when it raised the service warning no_charge (the
-# battery gained no charge although the source turned: host_sim/service.py).
+# looking for; ours), and "never_charged" when it raised a service warning that the battery
+# gained no charge although the source turned, whatever the cause (host_sim/service.py: a
+# controller failure, a protective block, loads above the source, a machine too weak).
 BLOCKED_SHARE = 0.5
 FLAGS = ("blocked", "never_charged")
+NEVER_CHARGED_CODES = ("no_charge", "charge_blocked", "loads_exceed_source",
+                       "source_below_battery")
 
 
 def blocked_share(sv, duration_s):
@@ -243,7 +246,8 @@ def flags(rec):
     b = rec.get("blocked_share")
     if b is not None and b >= BLOCKED_SHARE:
         out.append("blocked")
-    if "no_charge" in (rec.get("service") or {}).get("warnings", ()):
+    codes = (rec.get("service") or {}).get("warnings", ())
+    if any(c in codes for c in NEVER_CHARGED_CODES):
         out.append("never_charged")
     return out
 
@@ -469,7 +473,7 @@ def print_flags(records, out):
     def some(ids):
         return "%d of %d%s" % (len(ids), n, " (samples %s%s)" % (
             ", ".join(str(i) for i in ids[:12]), ", ..." if len(ids) > 12 else "") if ids else "")
-    print("flagged: blocked for %.0f %% of the run or more: %s; never charged (no_charge): %s"
+    print("flagged: blocked for %.0f %% of the run or more: %s; never charged: %s"
           % (100 * BLOCKED_SHARE, some(fl["blocked"]), some(fl["never_charged"])), file=out)
 
 

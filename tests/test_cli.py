@@ -207,7 +207,7 @@ def test_a_failed_write_keeps_the_previous_set_and_leaves_no_temporary_files(tmp
     out = tmp_path / "out"
     assert run(["simulate", scen, "--out", str(out), "--quiet"], capsys)[0] == 0
     before = {p.name: p.read_bytes() for p in out.iterdir()}
-    assert sorted(before) == ["report.png", "summary.json", "timeseries.csv"]
+    assert sorted(before) == ["report.html", "report.png", "summary.json", "timeseries.csv"]
 
     def full(result, path, *rest):
         raise OSError(errno.ENOSPC, "No space left on device")
