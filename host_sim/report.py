@@ -19,7 +19,7 @@ from matplotlib.transforms import blended_transform_factory
 
 from controller.signals import FAULT_NAMES, STAGE_NAMES
 from host_sim.fileio import atomic_open
-from host_sim.limitcheck import BATT_A_TOL, CAP_TOL, CHARGING_A
+from host_sim.limitcheck import BATT_A_TOL, CAP_TOL, CHARGING_A, DocLimits
 
 ENVELOPE_BINS = 1500
 DPI = 80
@@ -245,6 +245,7 @@ class Ctx:
         self.s = result.series
         self.sc = result.scenario
         self.p = self.sc.profile
+        self.d = DocLimits(self.sc.profile_doc)  # the judged limits, as the limit check has them
         self.lim = result.limits
         self.sv = result.service or {}
         self.minutes = self.sc.duration_s > 600
@@ -407,17 +408,17 @@ def _crossing_marks(result, t):
     """limit name -> (times, values) of the kept periods past the judged limit, from the
     series (a proxy of the checker's own test, which sees every period)."""
     s = result.series
-    p = result.scenario.profile
+    d = DocLimits(result.scenario.profile_doc)  # as the limit check judges them
     with np.errstate(invalid="ignore"):
         charging = s["batt_a"] > CHARGING_A
-        judged = np.where(np.isnan(s["ceiling_v"]), 0.0, s["ceiling_v"] + p.over_margin_mv / 1000)
-        lim_a = p.chg_limit_ma / 1000 * BATT_A_TOL
-        lo, hi = p.vbus_min_mv / 1000, p.vbus_max_mv / 1000
+        judged = np.where(np.isnan(s["ceiling_v"]), 0.0, s["ceiling_v"] + d.margin_v)
+        lim_a = d.chg_limit_a * BATT_A_TOL
+        lo, hi = d.vbus_min_v, d.vbus_max_v
         m = {
             "batt_ceiling": (charging & (s["batt_v"] > judged), s["batt_v"]),
             "batt_current": (s["batt_a"] > lim_a, s["batt_a"]),
-            "cap_clamp": (s["cap_v"] > p.cap_clamp_mv / 1000 * CAP_TOL, s["cap_v"]),
-            "cap_cell": (s["cell_v_max"] > p.cap_cell_rating_mv / 1000, s["cell_v_max"]),
+            "cap_clamp": (s["cap_v"] > d.cap_clamp_v * CAP_TOL, s["cap_v"]),
+            "cap_cell": (s["cell_v_max"] > d.cap_cell_rating_v, s["cell_v_max"]),
             "usb_vbus": ((s["usb_on"] > 0) & ((s["usb_vbus_v"] < lo) | (s["usb_vbus_v"] > hi)),
                          s["usb_vbus_v"]),
             "bus": (s["bus_v"] > _bus_limit_v(result.scenario), s["bus_v"]),
@@ -530,10 +531,10 @@ def _no_battery(pn, c):
 
 
 def _batt_v(pn, c):
-    s, t, p, a = c.s, c.t, c.p, pn.ax
+    s, t, a = c.s, c.t, pn.ax
     _no_battery(pn, c)
     shade = _stage_shading(a, c)
-    margin = p.over_margin_mv / 1000
+    margin = c.d.margin_v
     pn.trace(t, s["batt_v"], "battery V", color="#000000")
     with np.errstate(invalid="ignore"):
         judged = s["ceiling_v"] + margin
@@ -552,9 +553,9 @@ def _batt_v(pn, c):
 
 
 def _batt_a(pn, c):
-    s, t, p, a = c.s, c.t, c.p, pn.ax
+    s, t, a = c.s, c.t, pn.ax
     _no_battery(pn, c)
-    lim_a = p.chg_limit_ma / 1000
+    lim_a = c.d.chg_limit_a
     a.axhspan(lim_a, lim_a * BATT_A_TOL, color="#f4c7c3", lw=0, zorder=0)
     pn.trace(t, s["batt_a"], "battery A (+ charging)", color="#1f77b4", lw=0.7)
     pn.level(lim_a * BATT_A_TOL, _judged_label("batt_current", "limit x %.2f" % BATT_A_TOL, c,
@@ -604,7 +605,7 @@ def _bank(pn, c):
         pn.finish()
         return
     pn.trace(t, s["cap_v"], "bank V", color="#8c564b")
-    clamp = p.cap_clamp_mv / 1000
+    clamp = c.d.cap_clamp_v
     pn.level(clamp * CAP_TOL, _judged_label("cap_clamp", "clamp x %.2f" % CAP_TOL, c, "V"),
              judged=True)
     pn.level(clamp, "clamp %.2f V" % clamp)
@@ -616,13 +617,13 @@ def _bank(pn, c):
 
 
 def _cells(pn, c):
-    s, t, p, a = c.s, c.t, c.p, pn.ax
+    s, t, a = c.s, c.t, pn.ax
     if not c.sc.doc["supercap"]["present"]:
         pn.title = "Supercap cells: no bank"
         pn.finish()
         return
     pn.trace(t, s["cell_v_max"], "highest cell V", color="#8c564b")
-    pn.level(p.cap_cell_rating_mv / 1000, _judged_label("cap_cell", "cell rating", c, "V"),
+    pn.level(c.d.cap_cell_rating_v, _judged_label("cap_cell", "cell rating", c, "V"),
              judged=True)
     _mark(pn, "cap_cell", c)
     pn.fit(lo_floor=0.0, min_span=0.2)
@@ -631,8 +632,8 @@ def _cells(pn, c):
 
 
 def _usb(pn, c):
-    s, t, p, a = c.s, c.t, c.p, pn.ax
-    lo, hi = p.vbus_min_mv / 1000, p.vbus_max_mv / 1000
+    s, t, a = c.s, c.t, pn.ax
+    lo, hi = c.d.vbus_min_v, c.d.vbus_max_v
     a.axhspan(lo, hi, color="#c7e9c0", alpha=0.7, lw=0, zorder=0)
     vbus = np.where(s["usb_conv"] > 0, s["usb_vbus_v"], np.nan)  # the converter's, when on
     pn.trace(t, vbus, "VBUS (converter on)", color="#17becf")
